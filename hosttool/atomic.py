@@ -1,0 +1,43 @@
+"""Atomic file writes: a temporary file in the same folder, fsync, rename, fsync the folder.
+
+A reader (or a crash) sees either the old file or the whole new one, never a part.
+"""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from pathlib import Path
+
+from hosttool.errors import OutputError
+
+
+def write_atomic(path: str | Path, data: bytes | str) -> Path:
+    """Write ``data`` to ``path`` atomically; text is UTF-8 with the newlines given."""
+    path = Path(path)
+    payload = data.encode("utf-8") if isinstance(data, str) else data
+    folder = path.parent if str(path.parent) else Path(".")
+    if not folder.is_dir():
+        raise OutputError(f"{path}: folder {folder} does not exist")
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
+    except OSError as exc:
+        raise OutputError(f"{path}: cannot write in {folder}: {exc.strerror}") from None
+    try:
+        with os.fdopen(fd, "wb") as handle:
+            handle.write(payload)
+            handle.flush()
+            os.fsync(handle.fileno())
+        os.replace(tmp, path)
+    except OSError as exc:
+        Path(tmp).unlink(missing_ok=True)
+        raise OutputError(f"{path}: cannot write: {exc.strerror}") from None
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+    dir_fd = os.open(folder, os.O_RDONLY)
+    try:
+        os.fsync(dir_fd)
+    finally:
+        os.close(dir_fd)
+    return path

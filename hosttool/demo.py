@@ -1,0 +1,43 @@
+"""``hosttool demo``: the whole flow that exists so far, on a bundled example, into a folder."""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Iterator
+from pathlib import Path
+
+from hosttool.atomic import write_atomic
+from hosttool.budget import budget_text, compute_budget
+from hosttool.errors import OutputError
+from hosttool.resources import example_text
+from hosttool.spec import parse_spec
+
+
+def _new_folder(base: Path) -> Path:
+    """``base``, or ``base-2``, ``base-3`` ... whichever does not exist yet."""
+    candidate, n = base, 1
+    while candidate.exists():
+        n += 1
+        candidate = base.with_name(f"{base.name}-{n}")
+    return candidate
+
+
+def run_demo(folder: Path | None, example: str) -> Iterator[str]:
+    """Run every step on the example into ``folder``; yield one line per thing done."""
+    text = example_text(example)
+    folder = _new_folder(Path.cwd() / "hosttool-demo") if folder is None else folder
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OutputError(f"{folder}: cannot create: {exc.strerror}") from None
+    spec_path = write_atomic(folder / f"{example}.toml", text)
+    spec = parse_spec(text, source=str(spec_path))
+    yield f"spec    {spec_path}  (bundled example {example!r}, sha256 {spec.sha256[:16]}...)"
+
+    budget = compute_budget(spec)
+    write_atomic(folder / "budget.txt", budget_text(budget))
+    write_atomic(folder / "budget.json", json.dumps(budget.to_json(), indent=2) + "\n")
+    yield (f"check   {folder / 'budget.txt'}, budget.json  (PGA {budget.pga_gain}, "
+           f"{budget.range_used_pct:.1f} % of range, {budget.noise_free_bits:.1f} noise-free "
+           f"bits, {len(budget.warnings)} warnings)")
+    yield f"done: everything is in {folder}"
