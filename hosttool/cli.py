@@ -68,6 +68,24 @@ def check(spec: Path, as_json: bool) -> None:
 
 
 @main.command()
+@click.argument("spec", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--json", "as_json", is_flag=True, help="Print the design as one JSON object.")
+@guarded
+def design(spec: Path, as_json: bool) -> None:
+    """Resolve every constant of SPEC with its format, headroom and error bound."""
+    from hosttool.design import make_design
+    from hosttool.design_out import design_json, design_text
+    from hosttool.spec import load_spec
+
+    resolved = make_design(load_spec(spec))
+    if as_json:
+        _emit_json(design_json(resolved))
+    else:
+        click.echo(design_text(resolved, with_warnings=False), nl=False)
+    _warn(list(resolved.warnings))
+
+
+@main.command()
 @click.argument("path", type=click.Path(dir_okay=False, path_type=Path))
 @click.option("--example", "example", default="hive_scale", show_default=True,
               help="Which bundled example to start from.")
