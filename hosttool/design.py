@@ -331,7 +331,10 @@ def _stopband_edge(spec: Spec) -> float:
 def make_design(spec: Spec, constants: UnitConstants | None = None) -> Design:
     """Resolve every constant of ``spec``; ``constants`` are one unit's (nominal if None)."""
     budget = compute_budget(spec)
-    stages = design_chain(spec.filter)
+    try:
+        stages = design_chain(spec.filter)
+    except DesignError as exc:
+        raise DesignError(f"{spec.source}: {exc}") from None
     cascade = analyse_cascade(stages, spec.adc.data_rate_sps)
     bits = spec.adc.bits
     g = _guard_bits(bits, cascade, f"{spec.source}: filter")
