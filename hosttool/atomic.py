@@ -12,6 +12,16 @@ from pathlib import Path
 from hosttool.errors import OutputError
 
 
+def _mode_for(path: Path) -> int:
+    """The existing file's permissions, else what a plain open() would give (0666 & ~umask)."""
+    try:
+        return path.stat().st_mode & 0o7777
+    except FileNotFoundError:
+        umask = os.umask(0)
+        os.umask(umask)
+        return 0o666 & ~umask
+
+
 def write_atomic(path: str | Path, data: bytes | str) -> Path:
     """Write ``data`` to ``path`` atomically; text is UTF-8 with the newlines given."""
     path = Path(path)
@@ -24,6 +34,7 @@ def write_atomic(path: str | Path, data: bytes | str) -> Path:
     except OSError as exc:
         raise OutputError(f"{path}: cannot write in {folder}: {exc.strerror}") from None
     try:
+        os.fchmod(fd, _mode_for(path))
         with os.fdopen(fd, "wb") as handle:
             handle.write(payload)
             handle.flush()

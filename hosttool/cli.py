@@ -86,6 +86,30 @@ def design(spec: Path, as_json: bool) -> None:
 
 
 @main.command()
+@click.argument("spec", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--calibration", "calibration", type=click.Path(dir_okay=False, path_type=Path),
+              help="Verify one unit's constants (a calibrate result) instead of the nominal.")
+@click.option("--samples", default=1_000_000, show_default=True, type=int,
+              help="Length of the long random run (other tests scale with it).")
+@click.option("--seed", default=0, show_default=True, type=int, help="Seed of the random tests.")
+@click.option("--engine", default="python", show_default=True,
+              help="python (the bit-exact model), c (the compiled firmware) or both.")
+@click.option("--json", "as_json", is_flag=True, help="Print the results as one JSON object.")
+@click.option("--report", "report", type=click.Path(dir_okay=False, path_type=Path),
+              help="Write a self-contained HTML report with plots.")
+@guarded
+def verify(spec: Path, calibration: Path | None, samples: int, seed: int, engine: str,
+           as_json: bool, report: Path | None) -> None:
+    """Prove the integer firmware against its float64 reference (exit 0 pass, 1 fail)."""
+    from hosttool.verify_run import run_verify
+
+    verification, text = run_verify(spec, calibration=calibration, samples=samples, seed=seed,
+                                    engine=engine, as_json=as_json, report=report)
+    click.echo(text, nl=False)
+    sys.exit(0 if verification.passed else 1)
+
+
+@main.command()
 @click.argument("path", type=click.Path(dir_okay=False, path_type=Path))
 @click.option("--example", "example", default="hive_scale", show_default=True,
               help="Which bundled example to start from.")

@@ -125,6 +125,11 @@ class Design:
         return sum(e.worst_lsb for e in self.errors)
 
     @property
+    def static_error_bound_lsb(self) -> float:
+        """Proven worst case of the static path alone (filters settled: no filter rounding)."""
+        return sum(e.worst_lsb for e in self.errors if e.name != "filter rounding")
+
+    @property
     def error_rms_lsb(self) -> float:
         """Predicted RMS of the same difference (independent uniform roundings)."""
         return math.sqrt(sum(e.rms_lsb ** 2 for e in self.errors))

@@ -166,7 +166,7 @@ def response_rows(d: Design) -> list[Row]:
                  "largest |realised - ideal|"))
     for stage in r.stages:
         for p in stage.poles:
-            rows.append((f"stage{stage.index} section{p.section} pole",
+            rows.append((f"stage{stage.index + 1} section{p.section + 1} pole",
                          f"r {p.realised_radius:.9f}",
                          f"design {p.design_radius:.9f}, {p.realised_angle_hz:.5g} Hz "
                          f"(design {p.design_angle_hz:.5g}); radius error "

@@ -11,6 +11,8 @@ their RMS (uniform rounding, variance 1/12, Widrow's model) is L2 / sqrt(12).
 from __future__ import annotations
 
 import math
+
+import numpy as np
 from dataclasses import dataclass, field
 
 from hosttool import impulse
@@ -90,6 +92,22 @@ class CascadeAnalysis:
     output_rounding: float       # worst rounding at the chain output, chain LSB
     output_rounding_rms: float   # predicted RMS rounding at the chain output, chain LSB
     decimation: int
+    node_paths: tuple[Response, ...]   # realised response from the chain input to each node
+    node_decimations: tuple[int, ...]  # decimation from the chain input to each node
+
+    def worst_case_codes(self, node: int, code_max: int, repeats: int = 2) -> "np.ndarray":
+        """Codes of +-full scale that drive node ``node`` to +L1 at its last output.
+
+        The sign pattern is sign(h) time-reversed; it is front-padded to a whole number of
+        the node's decimation so that its last code completes an output.
+        """
+        path = self.node_paths[node]
+        signs = path.signs()
+        decimation = self.node_decimations[node]
+        pad = (-signs.size) % decimation
+        pattern = np.concatenate([np.zeros(pad, dtype=np.int64), signs])
+        codes = np.where(pattern >= 0, code_max, -code_max - 1)
+        return np.tile(codes, repeats)
 
 
 def _stage_responses(stage: Stage) -> list[tuple[str, Response, Response, Response | None]]:
@@ -109,6 +127,7 @@ def analyse_cascade(stages: tuple[Stage, ...], input_rate_hz: float) -> CascadeA
     """Gains, rounding sources and responses of the cascade (input bound applied later)."""
     walk = _Walk(impulse.identity(), impulse.identity())
     gains: list[tuple[str, float, float, float, Stage, int]] = []
+    paths: list[Response] = []
     for i, stage in enumerate(stages):
         name = f"stage{i + 1}"
         for suffix, realised, ideal, noise in _stage_responses(stage):
@@ -118,12 +137,13 @@ def analyse_cascade(stages: tuple[Stage, ...], input_rate_hz: float) -> CascadeA
                 walk.sources.append((f"{name}{suffix}", noise, walk.decimation, rate))
             gains.append((f"{name}{suffix}", walk.path.l1, walk.rounding_here(), rate, stage,
                           walk.decimation))
+            paths.append(walk.path)
         if isinstance(stage, FirStage):
             walk.decimation *= stage.decimation
             rate = input_rate_hz / walk.decimation
             walk.sources.append((name, impulse.identity(), walk.decimation, rate))
             last = gains[-1]
-            gains[-1] = (last[0], last[1], walk.rounding_here(), rate, last[4], last[5])
+            gains[-1] = (last[0], last[1], walk.rounding_here(), rate, last[4], walk.decimation)
     sources = tuple(RoundingSource(n, r, rate) for n, r, _, rate in walk.sources)
     nodes = tuple(NodeBound(n, g, e, 0.0, 32, rate) for n, g, e, rate, _, _ in gains)
     return CascadeAnalysis(
@@ -135,6 +155,8 @@ def analyse_cascade(stages: tuple[Stage, ...], input_rate_hz: float) -> CascadeA
         output_rounding=sum(s.worst for s in sources),
         output_rounding_rms=math.sqrt(sum(s.rms ** 2 for s in sources)),
         decimation=walk.decimation,
+        node_paths=tuple(paths),
+        node_decimations=tuple(g[5] for g in gains),
     )
 
 
