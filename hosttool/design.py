@@ -9,6 +9,7 @@ arithmetic; headroom.py for the range proof of the filter cascade.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass
 
@@ -155,8 +156,15 @@ class Design:
         return math.ldexp(1.0, -self.guard_bits)
 
     def with_constants(self, constants: UnitConstants) -> "Design":
-        """The same design carrying one unit's constants (bounds recomputed for them)."""
-        return make_design(self.spec, constants)
+        """The same design carrying one unit's constants (bounds recomputed for them).
+
+        Only what depends on the constants is redone (their check, the error terms, the
+        output bound); the filter design and its analysis are reused, so this is cheap
+        enough to call once per unit on a production line.
+        """
+        return dataclasses.replace(self, **_unit_fields(
+            self.spec, self.cascade, self.guard_bits, self.scale, self.linearisation,
+            self.temperature, constants, self.filter_report.warnings))
 
 
 def _guard_bits(bits: int, analysis: CascadeAnalysis, field: str) -> int:
@@ -333,6 +341,36 @@ def _stopband_edge(spec: Spec) -> float:
     return 0.8 * nyquist
 
 
+def _scaled_bound(cascade: CascadeAnalysis, input_bound: int, scale: Scale) -> float:
+    """Worst |s| after the scale over the whole ADC range, output LSB."""
+    chain_bound = cascade.total.l1 * input_bound + cascade.output_rounding
+    return chain_bound * scale.multiplier_range + 0.5
+
+
+def _unit_fields(spec: Spec, cascade: CascadeAnalysis, g: int, scale: Scale,
+                 lin: Linearisation | None, temp: TempComp | None, c: UnitConstants,
+                 filter_warnings: tuple[str, ...]) -> dict[str, object]:
+    """The Design fields that depend on the constants in force, after checking them."""
+    check_constants(c, bits=spec.adc.bits, g=g, scale=scale, lin=lin, temp=temp,
+                    source=spec.source)
+    input_bound = 1 << (spec.adc.bits + g)
+    scaled_bound = _scaled_bound(cascade, input_bound, scale)
+    errors = _errors(spec, cascade, scale, c, lin, temp, scaled_bound)
+    design_errors = _design_errors(cascade, input_bound, scale, c, lin)
+    out_bound = scaled_bound
+    if lin is not None:
+        out_bound = sum(abs(x) for x in c.lin) / 2 ** LIN_FRAC * 2.0 ** lin.norm_shift
+    if temp is not None:
+        out_bound = (out_bound + abs(c.tc_zero) / 2 ** temp.zero_shift * temp.dt_max) * (
+            1 + abs(c.tc_span) / 2 ** temp.span_shift / 2 ** LIN_FRAC * temp.dt_max) + 1
+    warnings = list(filter_warnings)
+    if out_bound > INT32_MAX:
+        warnings.append(f"inputs far beyond the sensor range can reach {out_bound:.4g} output "
+                        "LSB and saturate at the int32 limits")
+    return {"constants": c, "errors": errors, "design_errors": design_errors,
+            "output_bound_lsb": out_bound, "warnings": tuple(warnings)}
+
+
 def make_design(spec: Spec, constants: UnitConstants | None = None) -> Design:
     """Resolve every constant of ``spec``; ``constants`` are one unit's (nominal if None)."""
     budget = compute_budget(spec)
@@ -350,37 +388,23 @@ def make_design(spec: Spec, constants: UnitConstants | None = None) -> Design:
             raise DesignError(f"{spec.source}: filter: node {node.name} can reach "
                               f"{node.bound:.4g}, beyond its {node.word}-bit word")
     scale = _scale(spec, budget, g)
-    chain_bound = cascade.total.l1 * input_bound + cascade.output_rounding
-    scaled_bound = chain_bound * scale.multiplier_range + 0.5
+    scaled_bound = _scaled_bound(cascade, input_bound, scale)
     lin = _linearisation(spec, budget, min(scaled_bound, INT32_MAX))
     full_scale_lsb = spec.sensor.full_scale / spec.output.resolution
     temp = _temperature(spec, full_scale_lsb)
     nominal = _nominal(spec, budget, g, scale, lin, temp, full_scale_lsb)
-    c = nominal if constants is None else constants
-    check_constants(c, bits=bits, g=g, scale=scale, lin=lin, temp=temp, source=spec.source)
-    errors = _errors(spec, cascade, scale, c, lin, temp, scaled_bound)
-    design_errors = _design_errors(cascade, input_bound, scale, c, lin)
-    out_bound = scaled_bound
-    if lin is not None:
-        out_bound = sum(abs(x) for x in c.lin) / 2 ** LIN_FRAC * 2.0 ** lin.norm_shift
-    if temp is not None:
-        out_bound = (out_bound + abs(c.tc_zero) / 2 ** temp.zero_shift * temp.dt_max) * (
-            1 + abs(c.tc_span) / 2 ** temp.span_shift / 2 ** LIN_FRAC * temp.dt_max) + 1
     report = analyse_chain(stages, passband_edge_hz=signal_band(spec),
                            stopband_edge_hz=_stopband_edge(spec),
                            adc_rate_hz=spec.adc.data_rate_sps, sinc_order=spec.adc.sinc_order,
                            full_scale_lsb=full_scale_lsb,
                            sinc_decimation=(spec.adc.modulator_rate_hz / spec.adc.data_rate_sps
                                             if spec.adc.modulator_rate_hz else None))
-    warnings = list(report.warnings)
-    if out_bound > INT32_MAX:
-        warnings.append(f"inputs far beyond the sensor range can reach {out_bound:.4g} output "
-                        "LSB and saturate at the int32 limits")
+    unit = _unit_fields(spec, cascade, g, scale, lin, temp,
+                        nominal if constants is None else constants, tuple(report.warnings))
     return Design(spec=spec, budget=budget, guard_bits=g, input_bound=input_bound,
                   stages=stages, cascade=cascade, nodes=nodes, scale=scale,
-                  linearisation=lin, temperature=temp, nominal=nominal, constants=c,
-                  output_bound_lsb=out_bound, errors=errors, design_errors=design_errors,
-                  filter_report=report, warnings=tuple(warnings))
+                  linearisation=lin, temperature=temp, nominal=nominal,
+                  filter_report=report, **unit)  # type: ignore[arg-type]
 
 
 def coefficient_format(stage: Stage) -> QFormat:
