@@ -61,11 +61,12 @@ def _magnitude(v: Verification) -> str:
     else:
         ax.plot(f, 20 * np.log10(np.maximum(sinc, 1e-15)), color=SINC, label="ADC's sinc")
     for mains in (50.0, 60.0):
-        ax.axvline(mains if mains < fs / 2 else abs(mains - fs * round(mains / fs)),
-                   color=MAINS, ls=":", lw=1)
+        landing = abs(mains - fs * round(mains / fs))
+        if landing > 0:  # at 0 Hz it sits in a sinc notch, off this log axis
+            ax.axvline(landing, color=MAINS, ls=":", lw=1)
     ax.set_ylim(-180, 10)
     ax.set_xscale("log")
-    ax.set_xlabel("frequency at the ADC output, Hz (dotted: where 50 and 60 Hz land)")
+    ax.set_xlabel("frequency at the ADC output, Hz (dotted: where 50 and 60 Hz land, unless at 0 Hz)")
     ax.set_ylabel("dB")
     ax.grid(True, which="both", alpha=0.3)
     ax.legend(loc="lower left", fontsize=8)
@@ -100,11 +101,13 @@ def _static_error(v: Verification) -> str:
     fig, (ax1, ax2) = plt.subplots(1, 2, figsize=(9, 3.4))
     ax1.plot(s.code_bins, s.max_error_by_bin, color=REALISED, lw=0.8)
     ax1.axhline(s.bound_lsb, color=MAINS, ls="--", label="proven bound")
+    ax1.ticklabel_format(axis="y", useOffset=False)
     ax1.set_xlabel("ADC code")
     ax1.set_ylabel("largest |error| in bin, LSB")
     ax1.legend(fontsize=8)
     edges, counts = s.error_histogram
-    ax2.bar(0.5 * (edges[1:] + edges[:-1]), counts, width=np.diff(edges), color=REALISED)
+    ax2.bar(0.5 * (edges[1:] + edges[:-1]), counts, width=np.diff(edges), color=REALISED,
+            edgecolor="white", linewidth=0.5)
     ax2.set_xlabel("error, LSB (static path, every code)")
     ax2.set_ylabel("codes")
     return _png(fig)
