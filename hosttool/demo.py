@@ -8,9 +8,14 @@ from pathlib import Path
 
 from hosttool.atomic import write_atomic
 from hosttool.budget import budget_text, compute_budget
+from hosttool.design import make_design
+from hosttool.design_out import design_json, design_text
 from hosttool.errors import OutputError
 from hosttool.resources import example_text
+from hosttool.report import write_report
 from hosttool.spec import parse_spec
+from hosttool.verify import LONG_RUN_MIN, verify_design
+from hosttool.verify_out import verify_text
 
 
 def _new_folder(base: Path) -> Path:
@@ -40,4 +45,16 @@ def run_demo(folder: Path | None, example: str) -> Iterator[str]:
     yield (f"check   {folder / 'budget.txt'}, budget.json  (PGA {budget.pga_gain}, "
            f"{budget.range_used_pct:.1f} % of range, {budget.noise_free_bits:.1f} noise-free "
            f"bits, {len(budget.warnings)} warnings)")
+    design = make_design(spec)
+    write_atomic(folder / "design.txt", design_text(design))
+    write_atomic(folder / "design.json", json.dumps(design_json(design), indent=2) + "\n")
+    yield (f"design  {folder / 'design.txt'}, design.json  (G = {design.guard_bits} guard bits, "
+           f"proven error bound {design.error_bound_lsb:.3g} output LSB)")
+
+    verification = verify_design(design, samples=LONG_RUN_MIN, seed=0)
+    write_atomic(folder / "verify.txt", verify_text(verification))
+    write_report(verification, folder / "report.html")
+    yield (f"verify  {folder / 'report.html'}, verify.txt  "
+           f"({'PASS' if verification.passed else 'FAIL'}: static path over "
+           f"{verification.static.codes} codes, {len(verification.tests)} dynamic tests)")
     yield f"done: everything is in {folder}"

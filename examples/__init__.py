@@ -1,0 +1,1 @@
+"""Bundled example specs (data only; read through hosttool.resources)."""
