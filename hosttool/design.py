@@ -12,6 +12,7 @@ from __future__ import annotations
 import dataclasses
 import math
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -349,7 +350,7 @@ def _scaled_bound(cascade: CascadeAnalysis, input_bound: int, scale: Scale) -> f
 
 def _unit_fields(spec: Spec, cascade: CascadeAnalysis, g: int, scale: Scale,
                  lin: Linearisation | None, temp: TempComp | None, c: UnitConstants,
-                 filter_warnings: tuple[str, ...]) -> dict[str, object]:
+                 filter_warnings: tuple[str, ...]) -> dict[str, Any]:
     """The Design fields that depend on the constants in force, after checking them."""
     check_constants(c, bits=spec.adc.bits, g=g, scale=scale, lin=lin, temp=temp,
                     source=spec.source)

@@ -114,7 +114,7 @@ def _stage_responses(stage: Stage) -> list[tuple[str, Response, Response, Respon
     """(suffix, realised, ideal, rounding response or None) per section of a stage."""
     if isinstance(stage, FirStage):
         return [("", impulse.fir(stage.taps_realised), impulse.fir(stage.taps), None)]
-    parts = []
+    parts: list[tuple[str, Response, Response, Response | None]] = []
     for j, sec in enumerate(stage.sections):
         b_r, a_r = sec.b_realised, sec.a_realised
         noise = impulse.biquad((-1.0, 1.0, 0.0), a_r)

@@ -98,7 +98,8 @@ def pole_radius(a1: float, a2: float) -> float:
     return float(np.max(np.abs(np.roots([1.0, a1, a2]))))
 
 
-def biquad(b: Sequence[float], a: Sequence[float]) -> Response:
+def biquad(b: Sequence[float] | NDArray[np.float64], a: Sequence[float] | NDArray[np.float64]
+           ) -> Response:
     """A stable biquad's impulse response, long enough that the proven tail is negligible.
 
     ``a`` is (1, a1, a2). Raises ValueError for poles on or outside the unit circle.

@@ -200,7 +200,8 @@ def _static_float(design: Design, v: F64, temps: I64 | None, constants: UnitCons
     if lin is not None:
         coeffs = lin.coeffs if ideal else tuple(c / 2.0 ** LIN_FRAC for c in constants.lin)
         w = s / 2.0 ** lin.norm_shift
-        s = np.polynomial.polynomial.polyval(w, coeffs) * 2.0 ** lin.norm_shift
+        s = np.asarray(np.polynomial.polynomial.polyval(w, coeffs), dtype=np.float64) \
+            * 2.0 ** lin.norm_shift
     tc = design.temperature
     if tc is not None:
         t = np.full(s.shape, tc.reference_centi, dtype=np.int64) if temps is None else temps
