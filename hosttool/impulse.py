@@ -15,8 +15,10 @@ sum_{n>=M} (n + 1) rho^n = rho^M ((M + 1) / (1 - rho) + rho / (1 - rho)^2).
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from fractions import Fraction
 
 import numpy as np
 from numpy.typing import NDArray
@@ -94,8 +96,18 @@ def _tail_sum(rho: float, m: int) -> float:
 
 
 def pole_radius(a1: float, a2: float) -> float:
-    """Largest pole radius of 1 + a1 z^-1 + a2 z^-2."""
-    return float(np.max(np.abs(np.roots([1.0, a1, a2]))))
+    """Largest pole radius of 1 + a1 z^-1 + a2 z^-2, rounded up (safe for a bound).
+
+    The discriminant is formed exactly (the realised coefficients are dyadic rationals, so
+    Fraction holds them exactly); np.roots would lose half the digits for the nearby real
+    poles of a low cutoff. A relative margin of 1e-12 covers the final float rounding.
+    """
+    disc = Fraction(a1) ** 2 - 4 * Fraction(a2)
+    if disc < 0:
+        rho = math.sqrt(float(Fraction(a2)))
+    else:
+        rho = (abs(float(a1)) + math.sqrt(float(disc))) / 2
+    return rho * (1 + 1e-12)
 
 
 def biquad(b: Sequence[float] | NDArray[np.float64], a: Sequence[float] | NDArray[np.float64]
