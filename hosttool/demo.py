@@ -6,13 +6,15 @@ import json
 from collections.abc import Iterator
 from pathlib import Path
 
+import numpy as np
+
 from hosttool.atomic import write_atomic
 from hosttool.budget import budget_text, compute_budget
-from hosttool.design import make_design
+from hosttool.design import Design, make_design
 from hosttool.design_out import design_json, design_text
 from hosttool.errors import OutputError
-from hosttool.resources import example_text
 from hosttool.report import write_report
+from hosttool.resources import example_text
 from hosttool.spec import parse_spec
 from hosttool.verify import LONG_RUN_MIN, verify_design
 from hosttool.verify_out import verify_text
@@ -57,4 +59,28 @@ def run_demo(folder: Path | None, example: str) -> Iterator[str]:
     yield (f"verify  {folder / 'report.html'}, verify.txt  "
            f"({'PASS' if verification.passed else 'FAIL'}: static path over "
            f"{verification.static.codes} codes, {len(verification.tests)} dynamic tests)")
+    yield from _firmware(design, folder)
     yield f"done: everything is in {folder}"
+
+
+def _firmware(design: Design, folder: Path) -> Iterator[str]:
+    """Render the headers; where gcc is present, run the host runner against the model."""
+    from hosttool import cbuild
+    from hosttool.firmware_run import build_runner, demo_vectors, run_runner
+    from hosttool.model import run_integer
+    from hosttool.render import render_headers, write_headers
+
+    include = folder / "include"
+    include.mkdir(exist_ok=True)
+    paths = write_headers(render_headers(design), include, force=False)
+    yield f"render  {', '.join(str(p) for p in paths)}"
+    if cbuild.missing_tools("host", run=True):
+        yield "firmware: no host C compiler (gcc) found; skipped building the host runner"
+        return
+    codes, temps = demo_vectors(design)
+    exe = build_runner(design, "host", folder / "firmware-build")
+    same = np.array_equal(run_runner(exe, "host", codes, temps, timeout_s=60.0).output,
+                          run_integer(design, codes, temps).output)
+    yield (f"firmware {exe}: {codes.size} samples, "
+           + ("matched the Python model bit for bit" if same else
+              "DID NOT match the Python model: please report this as a bug"))
