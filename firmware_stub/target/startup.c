@@ -44,28 +44,28 @@ void _fini(void) {}
 /* Number of entries: 16 system exceptions, no external interrupts used. */
 #define HT_VECTOR_COUNT 16u
 
-typedef void (*ht_vector_t)(void);
+/* One vector table entry: the initial stack pointer or a handler address. */
+typedef union {
+    const void *stack;
+    void (*handler)(void);
+} ht_vector_t;
 
-/*
- * Vector table, placed first in the image by cortex_m.ld. Entry 0 is the
- * initial stack pointer; converting an object address to a function pointer
- * type is not ISO C, so the table holds addresses as integers instead.
- */
+/* Vector table, placed first in the image by cortex_m.ld. */
 __attribute__((section(".ht_vectors"), used))
-static const uintptr_t ht_vectors[HT_VECTOR_COUNT] = {
-    (uintptr_t)ht_stack_top,
-    (uintptr_t)ht_reset_handler,
-    (uintptr_t)ht_fault_handler, /* NMI */
-    (uintptr_t)ht_fault_handler, /* HardFault */
-    (uintptr_t)ht_fault_handler, /* MemManage (v7-M) */
-    (uintptr_t)ht_fault_handler, /* BusFault (v7-M) */
-    (uintptr_t)ht_fault_handler, /* UsageFault (v7-M) */
-    0u, 0u, 0u, 0u,              /* reserved */
-    (uintptr_t)ht_fault_handler, /* SVCall */
-    (uintptr_t)ht_fault_handler, /* DebugMonitor (v7-M) */
-    0u,                          /* reserved */
-    (uintptr_t)ht_fault_handler, /* PendSV */
-    (uintptr_t)ht_cycles_systick_handler, /* SysTick */
+static const ht_vector_t ht_vectors[HT_VECTOR_COUNT] = {
+    { .stack = ht_stack_top },
+    { .handler = ht_reset_handler },
+    { .handler = ht_fault_handler }, /* NMI */
+    { .handler = ht_fault_handler }, /* HardFault */
+    { .handler = ht_fault_handler }, /* MemManage (v7-M) */
+    { .handler = ht_fault_handler }, /* BusFault (v7-M) */
+    { .handler = ht_fault_handler }, /* UsageFault (v7-M) */
+    { .stack = 0 }, { .stack = 0 }, { .stack = 0 }, { .stack = 0 }, /* reserved */
+    { .handler = ht_fault_handler }, /* SVCall */
+    { .handler = ht_fault_handler }, /* DebugMonitor (v7-M) */
+    { .stack = 0 },                  /* reserved */
+    { .handler = ht_fault_handler }, /* PendSV */
+    { .handler = ht_cycles_systick_handler }, /* SysTick */
 };
 
 void ht_reset_handler(void)

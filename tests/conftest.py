@@ -1,0 +1,24 @@
+"""Shared test helpers: tool checks for the C build and emulator tests."""
+
+from __future__ import annotations
+
+import os
+
+import pytest
+
+from hosttool import cbuild
+
+
+def require_tools(kind: str, *, run: bool) -> None:
+    """Skip the test when ``kind`` lacks its compiler (or, with ``run``, its emulator).
+
+    With the environment variable CI=true a missing tool fails the test instead: CI must
+    never pass by skipping the layer it exists to run.
+    """
+    missing = cbuild.missing_tools(kind, run=run)
+    if not missing:
+        return
+    reason = f"{kind} needs {', '.join(missing)} on PATH"
+    if os.environ.get("CI") == "true":
+        pytest.fail(f"{reason} (CI=true: missing tools fail instead of skipping)")
+    pytest.skip(reason)
