@@ -290,9 +290,16 @@ def _static(design: Design, engines: dict[str, Engine]) -> StaticResult:
             monotonic &= bool(np.all(np.diff(joined) * sign >= 0))
             previous = run.output[-1]
             if i == 0:
-                idx = np.minimum(((x + limit) * STATIC_BINS) // (2 * limit), STATIC_BINS - 1)
-                np.maximum.at(by_bin, idx, abs_err)
-                hist += np.histogram(np.clip(err, -bound, bound), bins=hist_edges)[0]
+                # chunks start on bin edges and hold whole bins (both are powers of two)
+                per_bin = max(1, (2 * limit) // STATIC_BINS)
+                first = (start * STATIC_BINS) // (2 * limit)
+                maxima = abs_err.reshape(-1, per_bin).max(axis=1)
+                by_bin[first:first + maxima.size] = maxima
+                # uniform bins: index arithmetic instead of np.histogram's sort
+                width = hist_edges[1] - hist_edges[0]
+                idx = np.minimum(((np.clip(err, -bound, bound) + bound) / width).astype(np.int64),
+                                 hist.size - 1)
+                hist += np.bincount(idx, minlength=hist.size)
             for engine in engines.values():
                 same = np.array_equal(engine(x, t), run.output)
                 agree = same if agree is None else (agree and same)
