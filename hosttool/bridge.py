@@ -17,7 +17,8 @@ Vo/Vex = R1/(R1+R2) - R4/(R3+R4) with the active arm(s) changed by dR/R = GF * s
 - full Poisson:                 r = x (1+nu) / (2 + x (1-nu))
 
 with x = GF * strain. Leads: a two-wire quarter bridge has both leads (2 RL) in the gauge
-arm (offset RL / (2 (Rg + RL)) and sensitivity Rg / (Rg + 2 RL)); three-wire puts one lead in
+arm (offset RL / (2 (Rg + RL)) and sensitivity (Rg / (Rg + RL))^2, to first order the
+textbook Rg / (Rg + 2 RL)); three-wire puts one lead in
 the gauge arm and one in the adjacent arm (no offset, sensitivity Rg / (Rg + RL)); a half
 bridge is wired with three wires the same way; a four-wire full bridge loses 2 RL in the
 excitation leads; a six-wire (remote sense) full bridge loses nothing.

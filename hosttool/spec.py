@@ -264,7 +264,12 @@ class _Table:
         if key in self.data:
             return self.data[key]
         if required:
-            raise self.ctx.error(self._field(key), "missing required key", locate=self.path)
+            # a misspelt required key would otherwise never reach the unknown-key check
+            near = difflib.get_close_matches(key, [k for k in self.data if k not in self.used],
+                                             n=1, cutoff=0.8)
+            hint = f" (is {near[0]!r} a misspelling of it?)" if near else ""
+            raise self.ctx.error(self._field(key), f"missing required key{hint}",
+                                 locate=self.path)
         return default
 
     def number(self, key: str, default: float | None = None, *, required: bool = False,
@@ -400,10 +405,15 @@ class _Context:
             if not part.isdigit():
                 table_parts.append(part)
         start = 0
+        index = _array_index(parts)
         if table_parts:
-            header = re.compile(r"^\s*\[+\s*" + r"\s*\.\s*".join(map(re.escape, table_parts))
-                                + r"\s*\]+")
-            found = next((i for i, ln in enumerate(self.lines) if header.match(ln)), None)
+            header = self._header(table_parts)
+            headers = [i for i, ln in enumerate(self.lines) if header.match(ln)]
+            found = headers[0] if headers else None
+            if (index is not None and len(headers) > index
+                    and self.lines[headers[index]].lstrip().startswith("[[")):
+                # an array of tables: item `index` is the index-th [[...]] block
+                found, index = headers[index], None
             if found is None:
                 # keys of a table written inline (e.g. an array of inline tables)
                 found = next((i for i, ln in enumerate(self.lines)
@@ -419,16 +429,22 @@ class _Context:
         if key is None:
             return None
         pattern = re.compile(r"(^|[{,\s])" + re.escape(key) + r"\s*=")
-        index = _array_index(parts)
         hits = [i for i in range(start, len(self.lines)) if pattern.search(self.lines[i])
                 and (i == start or not table_parts or not self._is_header(self.lines[i]))]
-        if table_parts:
-            end = next((i for i in range(start + 1, len(self.lines))
-                        if self._is_header(self.lines[i])), len(self.lines))
-            hits = [i for i in hits if i < end]
+        end = next((i for i in range(start + 1 if table_parts else 0, len(self.lines))
+                    if self._is_header(self.lines[i])), len(self.lines))
+        hits = [i for i in hits if i < end]
         if index is not None and len(hits) > index:
             return hits[index] + 1
-        return hits[0] + 1 if hits else None
+        if hits:
+            return hits[0] + 1
+        # not a key: perhaps a table of its own ([sensor], [filter.x])
+        whole = self._header(table_parts + [key])
+        return next((i + 1 for i, ln in enumerate(self.lines) if whole.match(ln)), None)
+
+    @staticmethod
+    def _header(parts: list[str]) -> re.Pattern[str]:
+        return re.compile(r"^\s*\[+\s*" + r"\s*\.\s*".join(map(re.escape, parts)) + r"\s*\]+")
 
     @staticmethod
     def _is_header(line: str) -> bool:
