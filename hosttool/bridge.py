@@ -89,8 +89,8 @@ class Bridge:
 
     def peak_ratio(self) -> float:
         """Largest |r| over the range (V/V), with the zero balance at its worst sign."""
-        ends = [self.ratio(self.m_min) - self.offset, self.ratio(self.m_max) - self.offset]
-        return float(max(abs(e) for e in ends)) + abs(self.offset)
+        ends = [float(self.ratio(m)) - self.offset for m in (self.m_min, self.m_max)]
+        return max(abs(e) for e in ends) + abs(self.offset)
 
 
 def _strain_coefficients(s: StrainBridge) -> tuple[float, float, float, float]:
