@@ -15,6 +15,7 @@ from typing import Any
 
 from hosttool.design import Design, UnitConstants
 from hosttool.errors import InputError
+from hosttool.spec import Spec
 
 MAGIC = 0x42435448            # the bytes "HTCB" read as a little-endian uint32
 LAYOUT_VERSION = 1
@@ -97,9 +98,21 @@ class CalBlock:
     crc32: int
 
 
+#: spec object id -> (the spec, its hash8): the canonical hash costs far more than a block,
+#: and a production line encodes thousands of blocks for one spec object (kept alive here,
+#: so its id cannot be reused while cached).
+_HASH8: dict[int, tuple[Spec, bytes]] = {}
+
+
 def spec_hash8(design: Design) -> bytes:
     """The first 8 bytes of the spec's SHA-256 (the block's spec hash)."""
-    return bytes.fromhex(design.spec.sha256)[:8]
+    spec = design.spec
+    cached = _HASH8.get(id(spec))
+    if cached is None or cached[0] is not spec:
+        if len(_HASH8) >= 16:
+            _HASH8.clear()
+        cached = _HASH8[id(spec)] = (spec, bytes.fromhex(spec.sha256)[:8])
+    return cached[1]
 
 
 def encode(design: Design, constants: UnitConstants, *, serial: str, cal_time_utc: int) -> bytes:
