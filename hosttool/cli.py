@@ -153,5 +153,89 @@ def demo(folder: Path | None, example: str) -> None:
         click.echo(line)
 
 
+@main.command()
+@click.argument("spec", type=click.Path(dir_okay=False, path_type=Path))
+@click.argument("readings", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--serial", "serial", required=True, help="The unit to calibrate.")
+@click.option("-o", "--output", "out", required=True,
+              type=click.Path(dir_okay=False, path_type=Path), help="CAL.json to write.")
+@click.option("--cal-time", "cal_time", metavar="ISO8601",
+              help="Calibration time in UTC (default: the unit's latest time_utc reading).")
+@guarded
+def calibrate(spec: Path, readings: Path, serial: str, out: Path, cal_time: str | None) -> None:
+    """Fit one unit's constants from READINGS and judge them (exit 0 pass, 1 fail)."""
+    from hosttool.calibrate_run import run_calibrate
+
+    result, text = run_calibrate(spec, readings, serial=serial, out=out, cal_time=cal_time)
+    click.echo(text, nl=False)
+    sys.exit(0 if result.passed else 1)
+
+
+@main.command()
+@click.argument("spec", type=click.Path(dir_okay=False, path_type=Path))
+@click.argument("calibration", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("-o", "--output", "out", required=True,
+              type=click.Path(dir_okay=False, path_type=Path), help="Image file to write.")
+@click.option("--merge", "merge", type=click.Path(dir_okay=False, path_type=Path),
+              help="Firmware Intel HEX to merge the block into (no overlap allowed).")
+@click.option("--bin", "as_bin", is_flag=True, help="Write the block's area as raw bytes.")
+@guarded
+def image(spec: Path, calibration: Path, out: Path, merge: Path | None, as_bin: bool) -> None:
+    """Write a passed unit's calibration block as Intel HEX at the spec's flash address."""
+    from hosttool.image_run import run_image
+
+    click.echo(run_image(spec, calibration, out=out, merge=merge, as_bin=as_bin), nl=False)
+
+
+@main.command()
+@click.argument("spec", type=click.Path(dir_okay=False, path_type=Path))
+@click.argument("file", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--json", "as_json", is_flag=True, help="Print the block as one JSON object.")
+@guarded
+def inspect(spec: Path, file: Path, as_json: bool) -> None:
+    """Decode and check the calibration block in FILE (HEX, or .bin from image --bin)."""
+    from hosttool.image_run import run_inspect
+
+    data, text = run_inspect(spec, file, as_json=as_json)
+    if as_json:
+        _emit_json(data)
+    else:
+        click.echo(text, nl=False)
+
+
+@main.command()
+@click.argument("spec", type=click.Path(dir_okay=False, path_type=Path))
+@click.argument("readings", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--out", "out", required=True, type=click.Path(file_okay=False, path_type=Path),
+              help="Folder for the images (must exist).")
+@click.option("--db", "db", type=click.Path(dir_okay=False, path_type=Path),
+              help="Production record (SQLite; default: OUT/production.sqlite).")
+@click.option("--station", "station", help="Name of this station in the record (default: "
+              "the host name).")
+@click.option("--recalibrate", is_flag=True,
+              help="Record new constants for serials already recorded (history kept).")
+@click.option("--cal-time", "cal_time", metavar="ISO8601",
+              help="Calibration time in UTC for every unit (default: each unit's latest "
+              "time_utc reading).")
+@click.option("--jobs", "jobs", default=1, show_default=True, type=click.IntRange(1, 64),
+              help="Worker processes for the calibration arithmetic.")
+@guarded
+def batch(spec: Path, readings: Path, out: Path, db: Path | None, station: str | None,
+          recalibrate: bool, cal_time: str | None, jobs: int) -> None:
+    """Calibrate, image and record a lot (exit 0 all passed, 1 some failed, 2 bad input)."""
+    from hosttool.calibrate_run import cal_time_option
+    from hosttool.production import batch_text, run_batch
+
+    def progress(stream: Any, count: int) -> Any:
+        with click.progressbar(stream, length=count, label="units", file=sys.stderr) as bar:
+            yield from bar
+
+    summary = run_batch(spec, readings, out=out, db=db, station=station,
+                        recalibrate=recalibrate, cal_time=cal_time_option(cal_time),
+                        jobs=jobs, progress=progress)
+    click.echo(batch_text(summary, readings=readings.name, out=out), nl=False)
+    sys.exit(summary.exit_code)
+
+
 if __name__ == "__main__":  # pragma: no cover
     main()
