@@ -14,7 +14,7 @@ def columns(rows: Sequence[Sequence[str]], right: Sequence[bool]) -> list[str]:
     """Rows of cells aligned in columns (``right``: right-align that column)."""
     widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
     return ["  " + "  ".join(cell.rjust(w) if r else cell.ljust(w)
-                             for cell, w, r in zip(row, widths, right)).rstrip()
+                             for cell, w, r in zip(row, widths, right, strict=True)).rstrip()
             for row in rows]
 
 
@@ -57,7 +57,7 @@ def calibration_text(result: UnitCalibration, design: Design, *, readings: str) 
     lines = [f"{spec.name}: calibration of unit {result.serial} ({readings}, "
              f"{len(result.points)} readings, calibrated {format_time_utc(result.cal_time_utc)})",
              "", "Criteria", "--------"]
-    rows = [("criterion", "measured", "limit", "", "limit from")]
+    rows: list[tuple[str, ...]] = [("criterion", "measured", "limit", "", "limit from")]
     for c in result.criteria:
         mark = "info" if c.limit is None else ("pass" if c.passed else "FAIL")
         rows.append((c.label, f"{_g(c.value)} {c.unit}".rstrip(),

@@ -59,7 +59,7 @@ def constants_json(c: UnitConstants) -> dict[str, Any]:
             "tc_zero": c.tc_zero, "tc_span": c.tc_span}
 
 
-def calibration_json(result: "UnitCalibration", design: Design, *, readings_file: str,
+def calibration_json(result: UnitCalibration, design: Design, *, readings_file: str,
                      readings_sha256: str) -> dict[str, Any]:
     """The CAL.json object of one unit."""
     spec = design.spec

@@ -154,7 +154,7 @@ class Context:
     shape_slope: float         # bridge: tangent slope
 
     @classmethod
-    def of(cls, design: Design) -> "Context":
+    def of(cls, design: Design) -> Context:
         """Build once per spec; refuses a spec without a [calibration] section."""
         spec = design.spec
         if spec.calibration is None:
@@ -204,12 +204,12 @@ class _Layout:
     points: dict[tuple[int, int], list[int]]
 
     @classmethod
-    def of(cls, ctx: Context, u: UnitReadings) -> "_Layout":
+    def of(cls, ctx: Context, u: UnitReadings) -> _Layout:
         temps = u.temperature_c.tolist()
         order = sorted(range(len(temps)), key=temps.__getitem__)
         group = [0] * len(temps)
         g = 0
-        for before, after in zip(order, order[1:]):
+        for before, after in zip(order, order[1:], strict=False):
             g += temps[after] - temps[before] > TEMP_GROUP_C
             group[after] = g
         points: dict[tuple[int, int], list[int]] = {}
@@ -259,7 +259,8 @@ def _refuse_points(ctx: Context, u: UnitReadings, lay: _Layout) -> None:
             raise InputError(f"{where}: no reading at the reference {p:g} {unit} that "
                              "calibration.points asks for")
     lin = ctx.design.linearisation
-    needed = lin.order + 1 if lin is not None and lin.mode == "polynomial" else 2
+    needed = spec.linearisation.order + 1 if lin is not None and lin.mode == "polynomial" \
+        else 2
     if len(refs) < needed:
         raise InputError(f"{where}: {len(refs)} distinct reference values; the fit needs at "
                          f"least {needed}")
@@ -368,7 +369,7 @@ def _constants(ctx: Context, u: UnitReadings, fit: _Fit) -> tuple[UnitConstants,
             gamma = tc_span / 2.0 ** (tc.span_shift + LIN_FRAC)
             target = target / (1 + gamma * dt) + tc_zero / 2.0 ** tc.zero_shift * dt
         coeffs = np.polynomial.polynomial.polyfit(w, target / 2.0 ** k_norm,
-                                                  d.linearisation.order)
+                                                  d.spec.linearisation.order)
         for k, c in enumerate(coeffs):
             exact[f"lin[{k}]"] = math.ldexp(float(c), LIN_FRAC)
         lin = tuple(round(exact[f"lin[{k}]"]) for k in range(coeffs.size))
@@ -499,7 +500,8 @@ def calibrate_unit(ctx: Context, u: UnitReadings, *, cal_time_utc: int) -> UnitC
     else:
         codes = np.rint(u.raw_mean).astype(np.int64)
         temps = np.rint(u.temperature_c * 100).astype(np.int64)
-        output = static_integer(unit_design, codes, temps).output * ctx.resolution
+        firmware = static_integer(unit_design, codes, temps).output * ctx.resolution
+        output = np.asarray(firmware, dtype=np.float64)
         error = output - u.reference
     figures = _figures(ctx, fit, lay, u, error)
     return UnitCalibration(

@@ -68,7 +68,7 @@ class Plan:
     cycles: int = 1
 
     @classmethod
-    def of(cls, design: Design) -> "Plan":
+    def of(cls, design: Design) -> Plan:
         """Two extra temperatures inside the compensated range when the spec has one."""
         t = design.spec.temperature
         if t is None:
@@ -113,7 +113,7 @@ def unit_rows(design: Design, truth: UnitTruth, plan: Plan, rng: np.random.Gener
     mean = counts + rng.normal(0.0, 1.0, len(rows)) * std / math.sqrt(plan.samples)
     return [f"{truth.serial},{p:g},{t:.2f},{mu:.3f},{s:.3f},{plan.samples},"
             f"{'up' if u else 'down'},{format_time_utc(start_utc + 20 * i)}"
-            for i, ((p, _, u), t, mu, s) in enumerate(zip(rows, temps, mean, std))]
+            for i, ((p, _, u), t, mu, s) in enumerate(zip(rows, temps, mean, std, strict=True))]
 
 
 def header(design: Design) -> str:

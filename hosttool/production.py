@@ -35,7 +35,7 @@ import socket
 from collections.abc import Callable, Iterable, Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 
 from hosttool.atomic_group import write_group
@@ -45,8 +45,13 @@ from hosttool.calibration import Context, calibrate_unit
 from hosttool.design import make_design
 from hosttool.errors import InputError, OutputError
 from hosttool.hexfile import block_area, block_image, hex_text
-from hosttool.readings import ReadingsFile, UnitReadings, format_time_utc, load_readings, \
-    unit_cal_time
+from hosttool.readings import (
+    ReadingsFile,
+    UnitReadings,
+    format_time_utc,
+    load_readings,
+    unit_cal_time,
+)
 from hosttool.record import Record
 from hosttool.spec import load_spec
 
@@ -212,7 +217,7 @@ def _decide(st: Station, p: Prepared) -> _Plan:
 def _row(st: Station, p: Prepared, revision: int, hex_file: str | None) -> dict[str, object]:
     return {
         "serial": p.serial, "revision": revision, "current": 1, "station": st.name,
-        "recorded_utc": datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%S.%fZ"),
+        "recorded_utc": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%S.%fZ"),
         "cal_time_utc": p.cal_time_utc, "spec_name": st.spec_name,
         "spec_sha256": st.spec_sha256, "readings_file": st.readings_name,
         "readings_sha256": st.readings.sha256, "constants": p.constants,

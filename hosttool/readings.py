@@ -25,7 +25,7 @@ import hashlib
 import math
 import re
 from dataclasses import dataclass
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 
 import numpy as np
@@ -83,7 +83,7 @@ def parse_time_utc(text: str, where: str) -> int:
     except ValueError:
         raise InputError(f"{where}: {text!r} is not an ISO 8601 time such as "
                          "2025-03-04T08:15:00Z") from None
-    if stamp.tzinfo is None or stamp.utcoffset() != timezone.utc.utcoffset(None):
+    if stamp.tzinfo is None or stamp.utcoffset() != UTC.utcoffset(None):
         raise InputError(f"{where}: {text!r} must be in UTC (end it with Z)")
     if stamp.microsecond:
         raise InputError(f"{where}: {text!r}: give whole seconds")
@@ -92,7 +92,7 @@ def parse_time_utc(text: str, where: str) -> int:
 
 def format_time_utc(seconds: int) -> str:
     """Seconds since 1970 UTC as ISO 8601 ending in Z."""
-    return datetime.fromtimestamp(seconds, timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ")
+    return datetime.fromtimestamp(seconds, UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
 def _columns(header: list[str], spec: Spec, source: str, line: int) -> dict[str, int]:
@@ -155,7 +155,7 @@ class _Rules:
     t_span: str
 
     @classmethod
-    def of(cls, spec: Spec) -> "_Rules":
+    def of(cls, spec: Spec) -> _Rules:
         full = spec.sensor.full_scale
         t_low, t_high, t_span = -273.15, 1000.0, "the plausible range"
         if spec.temperature is not None:
@@ -262,13 +262,13 @@ def parse_readings(text: str, spec: Spec, source: str) -> ReadingsFile:
     has_time = "time_utc" in index
     lines = [n for n, _ in body[1:]]
     rows = [next(csv.reader([t])) if '"' in t else t.split(",") for _, t in body[1:]]
-    for line, cells in zip(lines, rows):
+    for line, cells in zip(lines, rows, strict=True):
         if len(cells) != len(header):
             raise InputError(f"{source}:{line}: {len(cells)} fields, the header has "
                              f"{len(header)}")
     cols = _fast_columns(rows, index, rules, has_time)
     if cols is None:
-        for line, cells in zip(lines, rows):
+        for line, cells in zip(lines, rows, strict=True):
             _check_row(_Row(cells, index, source, line), rules, has_time)
         raise AssertionError("the bulk and the row-by-row readings checks disagree")
     members: dict[str, list[int]] = {}
