@@ -10,6 +10,7 @@ import numpy as np
 
 from hosttool.atomic import write_atomic
 from hosttool.budget import budget_text, compute_budget
+from hosttool.demo_lot import run_lot
 from hosttool.design import Design, make_design
 from hosttool.design_out import design_json, design_text
 from hosttool.errors import OutputError
@@ -60,6 +61,7 @@ def run_demo(folder: Path | None, example: str) -> Iterator[str]:
            f"({'PASS' if verification.passed else 'FAIL'}: static path over "
            f"{verification.static.codes} codes, {len(verification.tests)} dynamic tests)")
     yield from _firmware(design, folder)
+    yield from run_lot(design, spec_path, folder)
     yield f"done: everything is in {folder}"
 
 
