@@ -60,7 +60,7 @@ def calibration_text(result: UnitCalibration, design: Design, *, readings: str) 
     rows: list[tuple[str, ...]] = [("criterion", "measured", "limit", "", "limit from")]
     for c in result.criteria:
         mark = "info" if c.limit is None else ("pass" if c.passed else "FAIL")
-        rows.append((c.label, f"{_g(c.value)} {c.unit}".rstrip(),
+        rows.append((c.label, "-" if c.value is None else f"{_g(c.value)} {c.unit}".rstrip(),
                      "-" if c.limit is None else f"{c.limit:.4g} {c.unit}".rstrip(), mark,
                      c.source))
     lines += columns(rows, (False, True, True, False, False))

@@ -99,7 +99,7 @@ class UnitCalibration:
     constants: UnitConstants
     formats_ok: bool
     formats_reason: str
-    figures: dict[str, float]
+    figures: dict[str, float | None]
     criteria: tuple[Criterion, ...]
     rounding: tuple[Rounding, ...]
     readings: UnitReadings
@@ -407,24 +407,26 @@ def _rounding(ctx: Context, c: UnitConstants, exact: dict[str, float]) -> tuple[
 
 
 def _figures(ctx: Context, fit: _Fit, lay: _Layout, u: UnitReadings,
-             error: F64 | None) -> dict[str, float]:
+             error: F64 | None) -> dict[str, float | None]:
     b = abs(fit.b)
-    hysteresis = repeatability = 0.0
+    hysteresis: float | None = None
+    repeatability: float | None = None
     for idx in lay.points.values():
         up, down = lay.directions(idx)
         if up and down:
-            hysteresis = max(hysteresis, abs(sum(up) / len(up) - sum(down) / len(down)))
+            hysteresis = max(hysteresis or 0.0,
+                             abs(sum(up) / len(up) - sum(down) / len(down)) / b)
         for same in (up, down):
             if len(same) >= 2:
-                repeatability = max(repeatability, max(same) - min(same))
-    figures = {
+                repeatability = max(repeatability or 0.0, (max(same) - min(same)) / b)
+    figures: dict[str, float | None] = {
         "zero_counts": fit.a,
         "zero_mv_per_v": fit.a * ctx.ratio_per_count * 1e3,
         "span_counts_per_unit": fit.b,
         "span_deviation_pct": (fit.b / ctx.nominal_b - 1) * 100,
         "nonlinearity": float(np.max(np.abs(fit.residual))) / b,
-        "hysteresis": hysteresis / b,
-        "repeatability": repeatability / b,
+        "hysteresis": hysteresis,             # None: no point read both up and down
+        "repeatability": repeatability,       # None: no point repeated
         "noise_ratio": float(u.raw_std.max()) / ctx.noise_counts,
     }
     if ctx.design.temperature is not None:
@@ -435,13 +437,19 @@ def _figures(ctx: Context, fit: _Fit, lay: _Layout, u: UnitReadings,
     return figures
 
 
-def _criteria(ctx: Context, u: UnitReadings, figures: dict[str, float],
+def _criteria(ctx: Context, u: UnitReadings, figures: dict[str, float | None],
               error: F64 | None) -> tuple[Criterion, ...]:
     spec = ctx.design.spec
     cal = spec.calibration
     assert cal is not None
     unit = spec.sensor.unit
     worst = figures.get("max_error")
+
+    def size(key: str) -> float:
+        value = figures[key]
+        assert value is not None            # always measured
+        return abs(value)
+
     rows: list[tuple[str, str, float | None, float | None, str, str]] = [
         ("max_error", "error", worst, cal.max_error, unit, "calibration.max_error")]
     if cal.max_error_pct_span is not None:
@@ -457,9 +465,9 @@ def _criteria(ctx: Context, u: UnitReadings, figures: dict[str, float],
         rows.append(("oiml_mpe_ratio", f"error / mpe of class {cal.oiml_class}", ratio, 1.0,
                      "", "calibration.oiml_class (OIML R 76-1)"))
     rows += [
-        ("zero_offset", "zero offset", abs(figures["zero_mv_per_v"]),
+        ("zero_offset", "zero offset", size("zero_mv_per_v"),
          cal.max_zero_offset_mv_per_v, "mV/V", "calibration.max_zero_offset_mv_per_v"),
-        ("span_deviation", "span against nominal", abs(figures["span_deviation_pct"]),
+        ("span_deviation", "span against nominal", size("span_deviation_pct"),
          cal.span_tolerance_pct, "%", "calibration.span_tolerance_pct"),
         ("noise_ratio", "noise / ADC noise", figures["noise_ratio"], cal.max_noise_ratio, "",
          "calibration.max_noise_ratio"),
@@ -473,9 +481,9 @@ def _criteria(ctx: Context, u: UnitReadings, figures: dict[str, float],
     temp = spec.temperature
     if temp is not None:
         rows += [
-            ("zero_tc", "zero temperature coefficient", abs(figures["zero_tc_ppm_fs_per_c"]),
+            ("zero_tc", "zero temperature coefficient", size("zero_tc_ppm_fs_per_c"),
              temp.max_zero_tc_ppm_fs_per_c, "ppm FS/C", "temperature.max_zero_tc_ppm_fs_per_c"),
-            ("span_tc", "span temperature coefficient", abs(figures["span_tc_ppm_per_c"]),
+            ("span_tc", "span temperature coefficient", size("span_tc_ppm_per_c"),
              temp.max_span_tc_ppm_per_c, "ppm/C", "temperature.max_span_tc_ppm_per_c")]
     return tuple(Criterion(key, label, value, limit, unit_, source,
                            limit is None or (value is not None and value <= limit))
