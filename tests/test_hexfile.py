@@ -237,12 +237,14 @@ def test_every_single_bit_flip_is_refused_by_the_decoder(unit: dict[str, Path]) 
     assert decode(block).serial == "HX-0007"
 
 
+@pytest.mark.parametrize("kind", ["host", pytest.param("m4", marks=pytest.mark.slow)])
 def test_c_loader_refuses_every_flip_and_runs_the_image_bit_exact(
-        unit: dict[str, Path], tmp_path: Path) -> None:
-    """Sources: the C reference loader (firmware_stub/ht_calblock.c) on the host, fed the
-    bytes intelhex reads from the tool's image; the Python integer model with the unit's
-    constants. One runner invocation: every damaged block, then the good one, then codes."""
-    require_tools("host", run=True)
+        unit: dict[str, Path], tmp_path: Path, kind: str) -> None:
+    """Sources: the C reference loader (firmware_stub/ht_calblock.c) on the host and on a
+    Cortex-M4 under QEMU, fed the bytes intelhex reads from the tool's image; the Python
+    integer model with the unit's constants. One runner invocation: every damaged block,
+    then the good one, then codes."""
+    require_tools(kind, run=True)
     from hosttool.firmware_run import build_runner, parse_run, runner_input
 
     image = IntelHex(str(unit["hex"])).tobinstr(start=ADDRESS, size=AREA)
@@ -254,8 +256,8 @@ def test_c_loader_refuses_every_flip_and_runs_the_image_bit_exact(
     temps = rng.integers(-2500, 5000, codes.size)
     samples = runner_input(codes, temps, calblock=image).decode()
     stdin = "".join(f"cal {data.hex()}\n" for _, data in cases) + samples
-    exe = build_runner(HIVE, "host", tmp_path / "build")
-    got = parse_run(cbuild.run(exe, "host", stdin.encode(), timeout_s=120.0))
+    exe = build_runner(HIVE, kind, tmp_path / "build")
+    got = parse_run(cbuild.run(exe, kind, stdin.encode(), timeout_s=300.0))
     statuses = re.findall(r"calblock ([^,]+), calibrated (\d)", got.stderr)
     assert len(statuses) == len(cases) + 1
     for (label, _), (status, calibrated) in zip(cases, statuses[:-1], strict=True):
