@@ -73,7 +73,6 @@ class ReadingsFile:
     source: str
     sha256: str
     units: dict[str, UnitReadings]
-    has_time: bool
 
 
 def parse_time_utc(text: str, where: str) -> int:
@@ -285,7 +284,7 @@ def parse_readings(text: str, spec: Spec, source: str) -> ReadingsFile:
             samples=cols["samples"][idx], up=cols["up"][idx],
             cal_time_utc=int(cols["time"][idx].max()) if has_time else None)
     digest = hashlib.sha256(text.encode("utf-8")).hexdigest()
-    return ReadingsFile(source=source, sha256=digest, units=units, has_time=has_time)
+    return ReadingsFile(source=source, sha256=digest, units=units)
 
 
 def load_readings(path: Path, spec: Spec) -> ReadingsFile:
