@@ -14,8 +14,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from hosttool.design import Design, UnitConstants
-from hosttool.errors import InputError
-from hosttool.spec import Spec
+from hosttool.errors import DesignError, InputError
 
 MAGIC = 0x42435448            # the bytes "HTCB" read as a little-endian uint32
 LAYOUT_VERSION = 1
@@ -98,21 +97,9 @@ class CalBlock:
     crc32: int
 
 
-#: spec object id -> (the spec, its hash8): the canonical hash costs far more than a block,
-#: and a production line encodes thousands of blocks for one spec object (kept alive here,
-#: so its id cannot be reused while cached).
-_HASH8: dict[int, tuple[Spec, bytes]] = {}
-
-
 def spec_hash8(design: Design) -> bytes:
     """The first 8 bytes of the spec's SHA-256 (the block's spec hash)."""
-    spec = design.spec
-    cached = _HASH8.get(id(spec))
-    if cached is None or cached[0] is not spec:
-        if len(_HASH8) >= 16:
-            _HASH8.clear()
-        cached = _HASH8[id(spec)] = (spec, bytes.fromhex(spec.sha256)[:8])
-    return cached[1]
+    return bytes.fromhex(design.spec.sha256)[:8]
 
 
 def encode(design: Design, constants: UnitConstants, *, serial: str, cal_time_utc: int) -> bytes:
@@ -188,3 +175,16 @@ def check_against(block: CalBlock, design: Design, source: str) -> None:
     if expected != found:
         raise InputError(f"{source}: the block's shifts {found} differ from the design's "
                          f"{expected}")
+    lin = design.linearisation
+    layout = (len(lin.coeffs) if lin else 0,
+              (FLAG_LINEARISATION if lin else 0) | (FLAG_TEMPERATURE if temp else 0),
+              temp.reference_centi if temp else 0)
+    found_layout = (len(block.constants.lin), block.flags, block.ref_temp_centi)
+    if layout != found_layout:
+        raise InputError(f"{source}: the block's (coefficients, flags, reference temperature) "
+                         f"{found_layout} differ from the design's {layout}")
+    try:
+        design.with_constants(block.constants)
+    except DesignError as exc:
+        raise InputError(f"{source}: the block's constants are outside the design's formats: "
+                         f"{exc}") from None

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import dataclasses
 import difflib
+import functools
 import hashlib
 import json
 import math
@@ -232,9 +233,12 @@ class Spec:
         """Canonical JSON: sorted keys, no spaces, floats as repr; comments and order vanish."""
         return json.dumps(self.canonical(), sort_keys=True, separators=(",", ":"))
 
-    @property
+    @functools.cached_property
     def sha256(self) -> str:
-        """SHA-256 (hex) of the canonical form: the spec hash of headers and calibration blocks."""
+        """SHA-256 (hex) of the canonical form: the spec hash of headers and calibration blocks.
+
+        Computed once per Spec (the spec is frozen, so it cannot change afterwards).
+        """
         return hashlib.sha256(self.canonical_json().encode("utf-8")).hexdigest()
 
 
