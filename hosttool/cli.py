@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import functools
 import json
+import os
 import sys
 import traceback
 from collections.abc import Callable
@@ -217,8 +218,9 @@ def inspect(spec: Path, file: Path, as_json: bool) -> None:
 @click.option("--cal-time", "cal_time", metavar="ISO8601",
               help="Calibration time in UTC for every unit (default: each unit's latest "
               "time_utc reading).")
-@click.option("--jobs", "jobs", default=1, show_default=True, type=click.IntRange(1, 64),
-              help="Worker processes for the calibration arithmetic.")
+@click.option("--jobs", "jobs", default=lambda: min(os.cpu_count() or 1, 8),
+              show_default="the machine's cores, at most 8", type=click.IntRange(1, 64),
+              help="Worker processes for the calibration arithmetic (small lots use one).")
 @guarded
 def batch(spec: Path, readings: Path, out: Path, db: Path | None, station: str | None,
           recalibrate: bool, cal_time: str | None, jobs: int) -> None:
