@@ -136,3 +136,42 @@ def test_failing_spec_without_budget_is_still_verified() -> None:
     design = make_design(parse_spec(text, "nobudget.toml"))
     v = verify_design(design, samples=20000)
     assert v.budget_units is None and v.passed
+
+
+def _unit_calibration(tmp_path: Path) -> Path:
+    """A CAL.json of one invented hive-scale unit, through the real calibrate command."""
+    from hosttool.lot_sim import UnitTruth, lot_csv
+
+    design = make_design(load_spec(EXAMPLES / "hive_scale.toml"))
+    truth = UnitTruth("HV-7", zero_mv_per_v=0.04, span_error_pct=3.0,
+                      zero_tc_ppm_fs_per_c=12.0, span_tc_ppm_per_c=-20.0)
+    readings = tmp_path / "readings.csv"
+    readings.write_text(lot_csv(design, [truth], seed=4, start_utc=1_741_075_200))
+    cal = tmp_path / "cal.json"
+    result = CliRunner().invoke(main, ["calibrate", str(EXAMPLES / "hive_scale.toml"),
+                                       str(readings), "--serial", "HV-7", "-o", str(cal)])
+    assert result.exit_code == 0, result.output
+    return cal
+
+
+def test_verify_one_units_constants(tmp_path: Path) -> None:
+    cal = _unit_calibration(tmp_path)
+    result = CliRunner().invoke(main, ["verify", str(EXAMPLES / "hive_scale.toml"),
+                                       "--calibration", str(cal), "--samples", "20000",
+                                       "--json"])
+    assert result.exit_code == 0, result.output
+    data = json.loads(result.stdout)
+    nominal = make_design(load_spec(EXAMPLES / "hive_scale.toml"))
+    # the unit's constants are in force: its bound differs from the nominal design's
+    assert data["passed"] and data["error_bound_lsb"] != nominal.error_bound_lsb
+
+
+def test_calibration_of_another_spec_is_refused(tmp_path: Path) -> None:
+    cal = _unit_calibration(tmp_path)
+    other = tmp_path / "other.toml"
+    other.write_text((EXAMPLES / "hive_scale.toml").read_text().replace(
+        "capacity = 200.0", "capacity = 300.0"))
+    result = CliRunner().invoke(main, ["verify", str(other), "--calibration", str(cal)])
+    assert result.exit_code == 2
+    assert result.stderr.count("\n") == 1 and "Traceback" not in result.stderr
+    assert str(cal) in result.stderr
