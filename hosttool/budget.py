@@ -12,8 +12,14 @@ from dataclasses import asdict, dataclass
 import numpy as np
 
 from hosttool import __version__
-from hosttool.adc import (PEAK_TO_PEAK_OVER_RMS, Converter, alias_hz, best_gain, rejection_db,
-                          sinc_magnitude)
+from hosttool.adc import (
+    PEAK_TO_PEAK_OVER_RMS,
+    Converter,
+    alias_hz,
+    best_gain,
+    rejection_db,
+    sinc_magnitude,
+)
 from hosttool.bridge import bridge_of, lead_desensitisation
 from hosttool.errors import DesignError
 from hosttool.spec import Spec
@@ -96,7 +102,7 @@ class Budget:
 
 
 def signal_band(spec: Spec) -> float:
-    """The signal band edge, Hz: output.bandwidth_hz, else the lowest filter corner, else Nyquist."""
+    """Signal band edge, Hz: output.bandwidth_hz, else the lowest filter corner, else Nyquist."""
     if spec.output.bandwidth_hz is not None:
         return spec.output.bandwidth_hz
     corners = [s.cutoff_hz for s in spec.filter.stages if s.cutoff_hz is not None]

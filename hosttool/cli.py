@@ -138,7 +138,8 @@ def new(path: Path, example: str, force: bool) -> None:
     from hosttool.starter import write_starter
 
     written = write_starter(path, example, force=force)
-    click.echo(f"wrote {written} (from example {example!r}); edit it, then: hosttool check {written}")
+    click.echo(f"wrote {written} (from example {example!r}); edit it, then: "
+               f"hosttool check {written}")
 
 
 @main.command()

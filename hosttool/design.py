@@ -156,7 +156,7 @@ class Design:
         """One chain word LSB in ADC counts, 2^-G."""
         return math.ldexp(1.0, -self.guard_bits)
 
-    def with_constants(self, constants: UnitConstants) -> "Design":
+    def with_constants(self, constants: UnitConstants) -> Design:
         """The same design carrying one unit's constants (bounds recomputed for them).
 
         Only what depends on the constants is redone (their check, the error terms, the
@@ -321,7 +321,7 @@ def _design_errors(cascade: CascadeAnalysis, input_bound: int, scale: Scale, c: 
     coeff = cascade.total.minus(cascade.ideal_total).l1 * input_bound * gain
     terms = [ErrorTerm("filter coefficients", coeff, coeff / math.sqrt(3))]
     if lin is not None:
-        q = sum(abs(x / 2 ** LIN_FRAC - y) for x, y in zip(c.lin, lin.coeffs))
+        q = sum(abs(x / 2 ** LIN_FRAC - y) for x, y in zip(c.lin, lin.coeffs, strict=True))
         terms.append(ErrorTerm("linearisation coefficients", q * 2.0 ** lin.norm_shift, 0.0))
         if lin.fit_residual_lsb:
             terms.append(ErrorTerm("linearisation fit", lin.fit_residual_lsb, 0.0))

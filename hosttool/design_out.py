@@ -28,7 +28,7 @@ def constants_rows(d: Design) -> list[tuple[str, float, int, str, str]]:
     for i, stage in enumerate(d.stages):
         if isinstance(stage, FirStage):
             f = stage.fmt
-            for k, (real, t) in enumerate(zip(stage.taps, stage.taps_int)):
+            for k, (real, t) in enumerate(zip(stage.taps, stage.taps_int, strict=True)):
                 rows.append((f"stage{i + 1}.h[{k}]", t / 2 ** f.frac, t, f.name,
                              f"design {real:.10g}"))
             continue
@@ -36,11 +36,11 @@ def constants_rows(d: Design) -> list[tuple[str, float, int, str, str]]:
             f = sec.fmt
             names = ("b0", "b1", "b2", "a1", "a2")
             ideal = (*sec.b, sec.a[1], sec.a[2])
-            for name, real, t in zip(names, ideal, (*sec.b_int, *sec.a_int)):
+            for name, real, t in zip(names, ideal, (*sec.b_int, *sec.a_int), strict=True):
                 rows.append((f"stage{i + 1}.section{j + 1}.{name}", t / 2 ** f.frac, t, f.name,
                              f"design {real:.10g}"))
     if d.linearisation is not None:
-        for k, (real, t) in enumerate(zip(d.linearisation.coeffs, c.lin)):
+        for k, (real, t) in enumerate(zip(d.linearisation.coeffs, c.lin, strict=True)):
             rows.append((f"lin.c{k}", t / 2 ** LIN_FRAC, t, _q(32, LIN_FRAC),
                          f"design {real:.10g}, variable s / 2^{d.linearisation.norm_shift}"))
     if d.temperature is not None:

@@ -11,9 +11,9 @@ their RMS (uniform rounding, variance 1/12, Widrow's model) is L2 / sqrt(12).
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass, field
 
 import numpy as np
-from dataclasses import dataclass, field
 
 from hosttool import impulse
 from hosttool.filters import FirStage, Stage
@@ -95,7 +95,7 @@ class CascadeAnalysis:
     node_paths: tuple[Response, ...]   # realised response from the chain input to each node
     node_decimations: tuple[int, ...]  # decimation from the chain input to each node
 
-    def worst_case_codes(self, node: int, code_max: int, repeats: int = 2) -> "np.ndarray":
+    def worst_case_codes(self, node: int, code_max: int, repeats: int = 2) -> np.ndarray:
         """Codes of +-full scale that drive node ``node`` to +L1 at its last output.
 
         The sign pattern is sign(h) time-reversed; it is front-padded to a whole number of

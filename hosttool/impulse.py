@@ -47,7 +47,7 @@ class Response:
         """Upper bound on sqrt(sum h[n]^2) (RMS gain for white noise)."""
         return float(np.sqrt(np.sum(self.h ** 2))) * (1 + FLOAT_MARGIN) + self.tail
 
-    def then(self, other: "Response") -> "Response":
+    def then(self, other: Response) -> Response:
         """This response followed by ``other`` (convolution; tails combined as a bound)."""
         la = float(np.sum(np.abs(self.h)))
         lb = float(np.sum(np.abs(other.h)))
@@ -56,7 +56,7 @@ class Response:
         tail = la * other.tail + self.tail * lb + self.tail * other.tail
         return Response(np.asarray(h, dtype=np.float64), tail)
 
-    def upsampled(self, factor: int) -> "Response":
+    def upsampled(self, factor: int) -> Response:
         """The same response seen from a rate ``factor`` times higher (zeros inserted)."""
         if factor == 1:
             return self
@@ -64,7 +64,7 @@ class Response:
         h[::factor] = self.h
         return Response(h, self.tail)
 
-    def minus(self, other: "Response") -> "Response":
+    def minus(self, other: Response) -> Response:
         """The difference of two responses (for the realised-versus-ideal bound)."""
         n = max(self.h.size, other.h.size)
         a = np.zeros(n)

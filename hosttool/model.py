@@ -41,7 +41,8 @@ class IntegerRun:
 
 
 @njit(cache=True)
-def _fir(x: I64, taps: I64, frac: int, decimation: int) -> tuple[I64, int, int]:  # pragma: no cover - compiled
+def _fir(x: I64, taps: I64, frac: int,
+         decimation: int) -> tuple[I64, int, int]:  # pragma: no cover - compiled
     n_out = x.size // decimation
     y = np.empty(n_out, dtype=np.int64)
     half = (1 << (frac - 1)) if frac > 0 else 0

@@ -66,7 +66,8 @@ def _magnitude(v: Verification) -> str:
             ax.axvline(landing, color=MAINS, ls=":", lw=1)
     ax.set_ylim(-180, 10)
     ax.set_xscale("log")
-    ax.set_xlabel("frequency at the ADC output, Hz (dotted: where 50 and 60 Hz land, unless at 0 Hz)")
+    ax.set_xlabel("frequency at the ADC output, Hz "
+                  "(dotted: where 50 and 60 Hz land, unless at 0 Hz)")
     ax.set_ylabel("dB")
     ax.grid(True, which="both", alpha=0.3)
     ax.legend(loc="lower left", fontsize=8)

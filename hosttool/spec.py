@@ -17,9 +17,10 @@ import json
 import math
 import re
 import tomllib
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 from hosttool.errors import SpecError
 
@@ -248,7 +249,7 @@ class Spec:
 class _Table:
     """A TOML table being validated: typed getters that record what was read."""
 
-    def __init__(self, data: dict[str, Any], path: str, ctx: "_Context"):
+    def __init__(self, data: dict[str, Any], path: str, ctx: _Context):
         self.data = data
         self.path = path
         self.ctx = ctx
@@ -352,7 +353,7 @@ class _Table:
             raise self.fail(key, f"expected true or false, got {_describe(value)}")
         return value
 
-    def table(self, key: str, *, required: bool = False) -> "_Table | None":
+    def table(self, key: str, *, required: bool = False) -> _Table | None:
         """A sub-table."""
         value = self._raw(key, None, required)
         if value is None:

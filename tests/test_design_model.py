@@ -142,7 +142,8 @@ def test_reference_filters_match_scipy() -> None:
     v = codes * 2.0 ** design.guard_bits - design.constants.offset
     for stage in design.stages:
         if isinstance(stage, FirStage):
-            v = signal.lfilter(stage.taps_realised, [1.0], v)[stage.decimation - 1::stage.decimation]
+            d = stage.decimation
+            v = signal.lfilter(stage.taps_realised, [1.0], v)[d - 1::d]
         else:
             sos = np.array([np.concatenate([s.b_realised, s.a_realised]) for s in stage.sections])
             v = signal.sosfilt(sos, v)
