@@ -68,21 +68,6 @@ static struct {
 #endif
 } ht_crc_runner_state;
 
-/* Value of one hex digit, or -1 if `c` is not one. */
-static int ht_hex_digit(char c)
-{
-    if (c >= '0' && c <= '9') {
-        return c - '0';
-    }
-    if (c >= 'a' && c <= 'f') {
-        return c - 'a' + 10;
-    }
-    if (c >= 'A' && c <= 'F') {
-        return c - 'A' + 10;
-    }
-    return -1;
-}
-
 /*
  * Decode `ndigits` hex digits at `text` into `out`. Returns the number of
  * bytes, or -1 if a character is not a hex digit or the count is odd.
@@ -95,8 +80,8 @@ HT_MUST_USE static long ht_hex_decode(const char *text, size_t ndigits, uint8_t 
         return -1;
     }
     for (i = 0u; i < ndigits; i += 2u) {
-        int hi = ht_hex_digit(text[i]);
-        int lo = ht_hex_digit(text[i + 1u]);
+        int hi = ht_hex_value(text[i]);
+        int lo = ht_hex_value(text[i + 1u]);
         if (hi < 0 || lo < 0) {
             return -1;
         }

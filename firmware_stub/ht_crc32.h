@@ -24,14 +24,7 @@
 #include <stddef.h>
 #include <stdint.h>
 
-/* Marks a function whose result must be used, where the compiler supports it. */
-#ifndef HT_MUST_USE
-#if defined(__GNUC__) || defined(__clang__)
-#define HT_MUST_USE __attribute__((warn_unused_result))
-#else
-#define HT_MUST_USE
-#endif
-#endif
+#include "ht_common.h"
 
 /* CRC of the empty message; the value to start an incremental computation. */
 #define HT_CRC32_EMPTY 0x00000000u

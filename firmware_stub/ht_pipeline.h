@@ -28,14 +28,7 @@
 
 #include HT_DESIGN_HEADER
 
-/* Marks a function whose result must be used, where the compiler supports it. */
-#ifndef HT_MUST_USE
-#if defined(__GNUC__) || defined(__clang__)
-#define HT_MUST_USE __attribute__((warn_unused_result))
-#else
-#define HT_MUST_USE
-#endif
-#endif
+#include "ht_common.h"
 
 /* HT_D(NAME) is the design's PREFIX_NAME. */
 #define HT_CAT_(a, b) a##b

@@ -72,21 +72,6 @@ static struct {
 #endif
 } ht_runner;
 
-/* Value of one hex digit, or -1. */
-static int ht_runner_hex(char c)
-{
-    if (c >= '0' && c <= '9') {
-        return c - '0';
-    }
-    if (c >= 'a' && c <= 'f') {
-        return c - 'a' + 10;
-    }
-    if (c >= 'A' && c <= 'F') {
-        return c - 'A' + 10;
-    }
-    return -1;
-}
-
 /*
  * Parse a decimal int32 at *s (optional sign, digits), skipping leading spaces; advance
  * *s past it. Returns 0 on success, -1 if there is no number or it overflows int32.
@@ -151,8 +136,8 @@ HT_MUST_USE static ht_line_t ht_runner_cal(const char *hex)
         ++hex;
     }
     while (hex[0] != '\0') {
-        int hi = ht_runner_hex(hex[0]);
-        int lo = hi < 0 ? -1 : ht_runner_hex(hex[1]);
+        int hi = ht_hex_value(hex[0]);
+        int lo = hi < 0 ? -1 : ht_hex_value(hex[1]);
         if (lo < 0 || n == HT_RUNNER_BLOCK) {
             return HT_LINE_MALFORMED;
         }

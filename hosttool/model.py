@@ -41,6 +41,16 @@ class IntegerRun:
 
 
 @njit(cache=True)
+def _clamp32(v: int) -> int:  # pragma: no cover - compiled
+    """sat32 of one int64 (explicit comparisons, as in the C firmware)."""
+    if v > INT32_MAX:
+        return INT32_MAX
+    if v < INT32_MIN:
+        return INT32_MIN
+    return v
+
+
+@njit(cache=True)
 def _fir(x: I64, taps: I64, frac: int,
          decimation: int) -> tuple[I64, int, int]:  # pragma: no cover - compiled
     n_out = x.size // decimation
@@ -54,13 +64,9 @@ def _fir(x: I64, taps: I64, frac: int,
         top = min(taps.size, n + 1)
         for k in range(top):
             acc += taps[k] * x[n - k]
-        v = (acc + half) >> frac
-        if v > INT32_MAX:
-            v = INT32_MAX
-            saturated += 1
-        elif v < INT32_MIN:
-            v = INT32_MIN
-            saturated += 1
+        r = (acc + half) >> frac
+        v = _clamp32(r)
+        saturated += v != r
         peak = max(peak, abs(v))
         y[m] = v
     return y, saturated, peak
@@ -80,13 +86,9 @@ def _biquad(x: I64, b0: int, b1: int, b2: int, a1: int, a2: int,
     peak = 0
     for n in range(x.size):
         acc = b0 * x[n] + b1 * x1 + b2 * x2 - a1 * y1 - a2 * y2 + e
-        v = (acc + half) >> q
-        if v > INT32_MAX:
-            v = INT32_MAX
-            saturated += 1
-        elif v < INT32_MIN:
-            v = INT32_MIN
-            saturated += 1
+        r = (acc + half) >> q
+        v = _clamp32(r)
+        saturated += v != r
         e = acc - v * (1 << q)
         x2 = x1
         x1 = x[n]
