@@ -109,12 +109,13 @@ class Design:
     input_bound: int            # |d| <= this, chain words (2^(bits + G))
     stages: tuple[Stage, ...]
     cascade: CascadeAnalysis
-    nodes: tuple[NodeBound, ...]
+    nodes: tuple[NodeBound, ...]          # the filter cascade's nodes and accumulators
     scale: Scale
     linearisation: Linearisation | None
     temperature: TempComp | None
     nominal: UnitConstants
     constants: UnitConstants    # in force: nominal, or one unit's
+    static_nodes: tuple[NodeBound, ...]   # scale, linearisation, temperature (per unit)
     output_bound_lsb: float     # worst |output| before the final saturation
     errors: tuple[ErrorTerm, ...]
     design_errors: tuple[ErrorTerm, ...]   # realised constants against the ideal design
@@ -125,6 +126,11 @@ class Design:
     def error_bound_lsb(self) -> float:
         """Proven worst-case |integer - float64 reference (realised constants)|, output LSB."""
         return sum(e.worst_lsb for e in self.errors)
+
+    @property
+    def all_nodes(self) -> tuple[NodeBound, ...]:
+        """Every node of the pipeline, in order: filters, then the static path."""
+        return self.nodes + self.static_nodes
 
     @property
     def static_error_bound_lsb(self) -> float:
@@ -358,18 +364,53 @@ def _unit_fields(spec: Spec, cascade: CascadeAnalysis, g: int, scale: Scale,
     scaled_bound = _scaled_bound(cascade, input_bound, scale)
     errors = _errors(spec, cascade, scale, c, lin, temp, scaled_bound)
     design_errors = _design_errors(cascade, input_bound, scale, c, lin)
-    out_bound = scaled_bound
-    if lin is not None:
-        out_bound = sum(abs(x) for x in c.lin) / 2 ** LIN_FRAC * 2.0 ** lin.norm_shift
-    if temp is not None:
-        out_bound = (out_bound + abs(c.tc_zero) / 2 ** temp.zero_shift * temp.dt_max) * (
-            1 + abs(c.tc_span) / 2 ** temp.span_shift / 2 ** LIN_FRAC * temp.dt_max) + 1
+    chain_bound = cascade.total.l1 * input_bound + cascade.output_rounding
+    static = _static_nodes(chain_bound, scale, lin, temp, c,
+                           spec.adc.data_rate_sps / cascade.decimation)
+    for node in static:
+        if node.word == 64 and node.headroom_bits < 0:
+            raise DesignError(f"{spec.source}: {node.name} can reach {node.bound:.4g}, beyond "
+                              "int64: narrow the temperature range or the coefficient limits")
+    out_bound = static[-1].bound
     warnings = list(filter_warnings)
     if out_bound > INT32_MAX:
         warnings.append(f"inputs far beyond the sensor range can reach {out_bound:.4g} output "
                         "LSB and saturate at the int32 limits")
     return {"constants": c, "errors": errors, "design_errors": design_errors,
-            "output_bound_lsb": out_bound, "warnings": tuple(warnings)}
+            "static_nodes": static, "output_bound_lsb": out_bound, "warnings": tuple(warnings)}
+
+
+def _static_nodes(chain_bound: float, scale: Scale, lin: Linearisation | None,
+                  temp: TempComp | None, c: UnitConstants, rate_hz: float
+                  ) -> tuple[NodeBound, ...]:
+    """Worst cases of the scale, linearisation and temperature steps (output LSB, or the
+    int64 products before their shifts), for chain words bounded by ``chain_bound``.
+
+    The span multiplier and the temperature coefficients are taken at the widest value
+    their formats accept (or the unit's, if wider), so the proof holds for every unit that
+    calibration can produce, not only for the constants in force.
+    """
+    m = max(abs(c.scale_mul), scale.multiplier_range * 2.0 ** scale.shift)
+    nodes = [NodeBound("scale.product", 0.0, 0.0, chain_bound * m + 2.0 ** (scale.shift - 1),
+                       64, rate_hz)]
+    bound = chain_bound * m / 2.0 ** scale.shift + 0.5
+    nodes.append(NodeBound("scale", 0.0, 0.0, bound, 32, rate_hz))
+    if lin is not None:
+        acc = float(sum(abs(x) for x in c.lin))
+        nodes.append(NodeBound("linearisation.product", 0.0, 0.0,
+                               acc * 2.0 ** LIN_FRAC + 2.0 ** (LIN_FRAC - 1), 64, rate_hz))
+        bound = acc / 2.0 ** LIN_FRAC * 2.0 ** lin.norm_shift + 0.5
+        nodes.append(NodeBound("linearisation", 0.0, 0.0, bound, 32, rate_hz))
+    if temp is not None:
+        kz = max(abs(c.tc_zero) / 2.0 ** temp.zero_shift, temp.zero_range)
+        ks = max(abs(c.tc_span) / 2.0 ** temp.span_shift, temp.span_range * 2.0 ** LIN_FRAC)
+        s1 = min(bound, INT32_MAX + 1.0) + kz * temp.dt_max + 0.5
+        g = ks * temp.dt_max + 0.5
+        nodes.append(NodeBound("temperature.product", 0.0, 0.0,
+                               s1 * g + 2.0 ** (LIN_FRAC - 1), 64, rate_hz))
+        nodes.append(NodeBound("temperature", 0.0, 0.0, s1 * (1 + g / 2.0 ** LIN_FRAC) + 0.5,
+                               32, rate_hz))
+    return tuple(nodes)
 
 
 def make_design(spec: Spec, constants: UnitConstants | None = None) -> Design:

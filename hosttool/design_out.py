@@ -87,7 +87,7 @@ def design_json(d: Design) -> dict[str, Any]:
             "fit_residual_lsb": d.linearisation.fit_residual_lsb},
         "temperature": None if d.temperature is None else dataclasses.asdict(d.temperature),
         "nodes": [{"name": n.name, "bound": n.bound, "word": n.word,
-                   "headroom_bits": n.headroom_bits, "rate_hz": n.rate_hz} for n in d.nodes],
+                   "headroom_bits": n.headroom_bits, "rate_hz": n.rate_hz} for n in d.all_nodes],
         "errors": [dataclasses.asdict(e) for e in d.errors],
         "error_bound_lsb": d.error_bound_lsb,
         "error_rms_lsb": d.error_rms_lsb,
@@ -125,7 +125,7 @@ def design_text(d: Design, *, with_warnings: bool = True) -> str:
     consts: list[Row] = [(n, f"{i}", f"{f}  = {v:.10g}  {note}")
                          for n, v, i, f, note in constants_rows(d)]
     nodes: list[Row] = [(n.name, f"{n.bound:.4g}", f"int{n.word}, headroom "
-                         f"{n.headroom_bits:.2f} bits, {n.rate_hz:g} Hz") for n in d.nodes]
+                         f"{n.headroom_bits:.2f} bits, {n.rate_hz:g} Hz") for n in d.all_nodes]
     errs: list[Row] = [(e.name, f"{e.worst_lsb:.4g} LSB", f"RMS {e.rms_lsb:.3g} LSB")
                        for e in d.errors]
     errs.append(("total, proven", f"{d.error_bound_lsb:.4g} LSB",

@@ -113,7 +113,7 @@ def design_context(d: Design) -> dict[str, Any]:
                   "limit": scale_mul_limit(d)},
         "lin": None, "temp": None,
         "lin_frac": LIN_FRAC,
-        "nodes": d.nodes, "errors": d.errors, "error_bound": d.error_bound_lsb,
+        "nodes": d.all_nodes, "errors": d.errors, "error_bound": d.error_bound_lsb,
         "ideal_error_bound": d.ideal_error_bound_lsb, "output_bound": d.output_bound_lsb,
         "resolution": d.spec.output.resolution, "unit": d.spec.sensor.unit,
         "warnings": d.warnings,

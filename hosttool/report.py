@@ -115,7 +115,7 @@ def _static_error(v: Verification) -> str:
 
 
 def _headroom(v: Verification) -> str:
-    nodes = v.design.nodes
+    nodes = v.design.all_nodes
     fig, ax = plt.subplots(figsize=(8, 0.45 * len(nodes) + 1))
     bits = [n.headroom_bits for n in nodes]
     ax.barh([n.name for n in nodes], bits, color=[REALISED if n.word == 32 else SINC

@@ -40,7 +40,7 @@ def verify_json(v: Verification) -> dict[str, Any]:
                    "engines_agree": t.engines_agree, "figures": t.figures,
                    "passed": t.passed} for t in v.tests],
         "headroom": [{"name": n.name, "bound": n.bound, "word": n.word,
-                      "headroom_bits": n.headroom_bits} for n in d.nodes],
+                      "headroom_bits": n.headroom_bits} for n in d.all_nodes],
     }
 
 

@@ -120,7 +120,7 @@ def test_integer_model_within_proven_bound(design: Design) -> None:
 @pytest.mark.parametrize("design", DESIGNS, ids=IDS)
 def test_node_peaks_stay_within_bounds_and_worst_case_reaches_them(design: Design) -> None:
     lim = _limit(design)
-    bounds = {n.name: n.bound for n in design.nodes if n.word == 32}
+    bounds = {n.name: n.bound for n in design.all_nodes if n.word == 32}
     # the sign pattern of the chain's impulse response drives the last filter node to
     # (nearly) L1 * X: the bound is tight, not just safe
     worst = design.cascade.total.signs()

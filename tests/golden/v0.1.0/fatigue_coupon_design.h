@@ -7,7 +7,7 @@
  * longer matches the body hash below, unless forced.
  * spec fatigue_coupon, sha256 15269441c7dbbf5240af85f6bae321748c97d9ee4785454364c4ce68d4b85161
  * defaults: nominal constants of the spec
- * body sha256 de88fe4384bf7dfffe868d292883ce0d2f47da431b1cb6b3c3124c3ce53f986e
+ * body sha256 e172e4a6fe762d79ad6769d9758e66a8b671a1dde48b8d3a571fc26754afc384
  */
 #ifndef FATIGUE_COUPON_DESIGN_H
 #define FATIGUE_COUPON_DESIGN_H
@@ -267,6 +267,10 @@ static const int32_t FATIGUE_COUPON_LIN_DEFAULT[FATIGUE_COUPON_LIN_COUNT] = {
  *   stage2.section1         1.16261e+09  int32, headroom 0.89 bits
  *   stage3.section1.acc     3.68292e+18  int64, headroom 1.32 bits
  *   stage3.section1         1.15983e+09  int32, headroom 0.89 bits
+ *   scale.product           1.49448e+18  int64, headroom 2.63 bits
+ *   scale                        679609  int32, headroom 11.63 bits
+ *   linearisation.product   1.29281e+18  int64, headroom 2.83 bits
+ *   linearisation           1.17581e+06  int32, headroom 10.83 bits
  * Worst |output| before the final saturation: 1.17581e+06 LSB.
  * Error against the float64 reference of the same constants, output LSB:
  *   filter rounding            worst 0.009787, RMS 0.000756

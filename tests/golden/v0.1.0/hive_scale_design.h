@@ -7,7 +7,7 @@
  * longer matches the body hash below, unless forced.
  * spec hive_scale, sha256 af63af9f9a479d259c4132deb379d117c3899eab541910a08258164c5168dfa6
  * defaults: nominal constants of the spec
- * body sha256 b3edb1b082661b4d09fcab61d3ccbbdd4ed4aaba7644181f930b5a882729ab10
+ * body sha256 7329d98ef93f3dd033b6e4f24fdf6eda133736feef60961354acc1e16fd6b2ad
  */
 #ifndef HIVE_SCALE_DESIGN_H
 #define HIVE_SCALE_DESIGN_H
@@ -149,7 +149,11 @@ static const int32_t HIVE_SCALE_STAGE1_TAPS[HIVE_SCALE_STAGE1_LENGTH] = {
  *   stage1                  1.07374e+09  int32, headroom 1.00 bits
  *   stage2.section1.acc     2.84861e+18  int64, headroom 1.70 bits
  *   stage2.section1         1.16543e+09  int32, headroom 0.88 bits
- * Worst |output| before the final saturation: 186554 LSB.
+ *   scale.product           1.64093e+18  int64, headroom 2.49 bits
+ *   scale                        186553  int32, headroom 13.49 bits
+ *   temperature.product     4.01242e+11  int64, headroom 24.45 bits
+ *   temperature                  186967  int32, headroom 13.49 bits
+ * Worst |output| before the final saturation: 186967 LSB.
  * Error against the float64 reference of the same constants, output LSB:
  *   filter rounding            worst 0.0003542, RMS 5.72e-05
  *   scale rounding             worst 0.5, RMS 0.289
