@@ -19,6 +19,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import require_tools
 
 from hosttool import __version__, cbuild
 from hosttool.design import make_design
@@ -54,8 +55,7 @@ def _kept_versions() -> list[Path]:
 @pytest.mark.parametrize("kept", _kept_versions(), ids=lambda p: p.name)
 def test_current_firmware_builds_and_runs_with_kept_headers(name: str, kept: Path,
                                                             tmp_path: Path) -> None:
-    if cbuild.missing_tools("host", run=True):
-        pytest.skip("no host C compiler")
+    require_tools("host", run=True)
     design = make_design(load_spec(EXAMPLES / f"{name}.toml"))
     exe = cbuild.build(HT_RUNNER, "host", tmp_path, include_dirs=[kept],
                        defines=firmware_defines(design))
