@@ -95,7 +95,7 @@ def rejection_db(magnitude: float, floor_db: float = 300.0) -> float:
     """Attenuation in dB of a magnitude, capped at floor_db for an exact notch."""
     if magnitude <= 10 ** (-floor_db / 20):
         return floor_db
-    return -20.0 * math.log10(magnitude)
+    return -20.0 * math.log10(magnitude) + 0.0  # + 0.0: no "-0" for a gain of exactly 1
 
 
 def alias_hz(freq_hz: float, sample_rate: float) -> float:

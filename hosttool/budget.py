@@ -227,7 +227,7 @@ def budget_text(b: Budget, *, with_warnings: bool = True) -> str:
     u = b.unit
     sensor_rows: list[Row] = [
         ("measuring range", f"{num(b.range_min)} .. {num(b.range_max)} {u}", ""),
-        ("output step", f"{num(b.resolution)} {u}", f"{num(b.requested_divisions)} steps"),
+        ("output step", f"{num(b.resolution)} {u}", f"{b.requested_divisions:,.0f} steps"),
         ("bridge resistance", f"{num(b.bridge_resistance_ohm)} ohm", ""),
         ("excitation", f"{num(b.excitation_v)} V",
          f"{num(b.excitation_current_ma, 4)} mA, {num(b.excitation_power_mw, 4)} mW"),
@@ -249,7 +249,7 @@ def budget_text(b: Budget, *, with_warnings: bool = True) -> str:
         ("noise-free", f"{b.noise_free_bits:.2f} bits",
          f"{num(b.noise_free_counts, 4)} counts p-p (6.6 x RMS)"),
         ("noise-free resolution", f"{num(b.noise_free_resolution, 4)} {u}",
-         f"{num(b.noise_free_divisions, 4)} divisions over the span"),
+         f"{b.noise_free_divisions:,.0f} divisions over the span"),
     ]
     mains_rows: list[Row] = []
     for m in b.mains:
