@@ -128,6 +128,13 @@ class Design:
         return sum(e.worst_lsb for e in self.errors)
 
     @property
+    def output_noise_rms_lsb(self) -> float:
+        """The ADC's input-referred noise after the filters and scale, RMS output LSB
+        (white noise through the cascade's L2 norm; linearisation slope taken as 1)."""
+        gain = abs(self.scale.realised(self.constants.scale_mul)) * 2.0 ** self.guard_bits
+        return self.budget.noise_counts_rms * self.cascade.total.l2 * gain
+
+    @property
     def all_nodes(self) -> tuple[NodeBound, ...]:
         """Every node of the pipeline, in order: filters, then the static path."""
         return self.nodes + self.static_nodes

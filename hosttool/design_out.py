@@ -7,6 +7,7 @@ import math
 from typing import Any
 
 from hosttool import __version__
+from hosttool.adc import PEAK_TO_PEAK_OVER_RMS
 from hosttool.design import LIN_FRAC, Design
 from hosttool.filters import BiquadStage, FirStage
 from hosttool.fixedpoint import QFormat
@@ -94,6 +95,7 @@ def design_json(d: Design) -> dict[str, Any]:
         "design_errors": [dataclasses.asdict(e) for e in d.design_errors],
         "ideal_error_bound_lsb": d.ideal_error_bound_lsb,
         "output_bound_lsb": d.output_bound_lsb,
+        "output_noise_rms_lsb": d.output_noise_rms_lsb,
         "response": dataclasses.asdict(d.filter_report),
         "warnings": list(d.warnings),
     }
@@ -121,6 +123,9 @@ def design_text(d: Design, *, with_warnings: bool = True) -> str:
         ("input bound", f"2^{int(math.log2(d.input_bound))}", "|code - offset| over the ADC range"),
         ("decimation", f"{d.decimation}", f"output {d.output_rate_hz:g} samples/s"),
         ("output LSB", f"{lsb:g} {unit}", f"bound {d.output_bound_lsb:.4g} LSB before saturation"),
+        ("ADC noise at the output", f"{d.output_noise_rms_lsb:.3g} LSB RMS",
+         f"noise-free {PEAK_TO_PEAK_OVER_RMS * d.output_noise_rms_lsb * lsb:.3g} {unit} "
+         f"(6.6 x RMS; at the ADC {d.budget.noise_free_resolution:.3g} {unit})"),
     ]
     consts: list[Row] = [(n, f"{i}", f"{f}  = {v:.10g}  {note}")
                          for n, v, i, f, note in constants_rows(d)]

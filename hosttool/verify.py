@@ -233,9 +233,7 @@ def _dynamic(design: Design, name: str, description: str, codes: I64, temps: I64
     if name == "adc_noise":
         tail = run.output[run.output.size // 4:]
         figures["output_noise_rms_lsb"] = float(np.std(tail))
-        figures["output_noise_predicted_lsb"] = (
-            design.budget.noise_counts_rms * design.cascade.total.l2
-            * abs(design.scale.realised(design.constants.scale_mul)) * 2 ** design.guard_bits)
+        figures["output_noise_predicted_lsb"] = design.output_noise_rms_lsb
     if name.startswith("mains_"):
         tail = run.output[run.output.size // 2:]
         figures["hum_residual_pp_lsb"] = float(tail.max() - tail.min())
