@@ -276,3 +276,16 @@ def test_design_bad_input_is_one_line_exit_2(tmp_path: Path) -> None:
     assert result.stderr.count("\n") == 1
     assert "filter.stages[0]" in result.stderr
     assert "Traceback" not in result.stderr
+
+
+@pytest.mark.parametrize("design", DESIGNS, ids=IDS)
+def test_output_noise_prediction_matches_white_noise_through_the_chain(design: Design) -> None:
+    # white noise of variance s^2 through a linear filter h leaves variance s^2 sum h^2
+    # (standard linear-systems result); the design's figure uses the cascade's L2 norm
+    sigma = 2000.0  # counts, large against the rounding so rounding does not matter
+    rng = np.random.default_rng(21)
+    codes = np.rint(rng.normal(0.0, sigma, 400000)).astype(np.int64)
+    out = run_reference(design, codes)[2000:]
+    predicted = design.output_noise_rms_lsb * sigma / design.budget.noise_counts_rms
+    # the linearisation slope near zero is 1 to well within the tolerance
+    assert float(np.std(out)) == pytest.approx(predicted, rel=0.03)
