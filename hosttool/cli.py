@@ -123,8 +123,8 @@ def render(spec: Path, folder: Path, calibration: Path | None, force: bool) -> N
     """Write the C headers of SPEC (design and calibration block) into a folder."""
     from hosttool.render import render_spec
 
-    for path in render_spec(spec, folder, calibration=calibration, force=force):
-        click.echo(f"wrote {path}")
+    for path, changed in render_spec(spec, folder, calibration=calibration, force=force):
+        click.echo(f"{'wrote' if changed else 'unchanged'} {path}")
 
 
 @main.command()

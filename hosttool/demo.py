@@ -74,7 +74,7 @@ def _firmware(design: Design, folder: Path) -> Iterator[str]:
 
     include = folder / "include"
     include.mkdir(exist_ok=True)
-    paths = write_headers(render_headers(design), include, force=False)
+    paths = [path for path, _ in write_headers(render_headers(design), include, force=False)]
     yield f"render  {', '.join(str(p) for p in paths)}"
     if cbuild.missing_tools("host", run=True):
         yield "firmware: no host C compiler (gcc) found; skipped building the host runner"

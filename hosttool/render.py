@@ -122,12 +122,14 @@ def check_overwrite(path: Path) -> None:
                           "use --force to overwrite")
 
 
-def write_headers(headers: tuple[Header, ...], folder: Path, *, force: bool) -> list[Path]:
-    """Write every header into ``folder``, all or none.
+def write_headers(headers: tuple[Header, ...], folder: Path, *,
+                  force: bool) -> list[tuple[Path, bool]]:
+    """Write every header into ``folder``, all or none; (path, changed) for each.
 
     All checks come first (folder exists; each existing file generated and unedited, unless
     ``force``); each file is written atomically, and if one write fails the files already
-    written are put back as they were.
+    written are put back as they were. A file whose bytes would not change is left alone
+    (its time stamp too, so a build does not recompile for nothing).
     """
     if not folder.is_dir():
         what = "is not a folder" if folder.exists() else "does not exist"
@@ -141,9 +143,14 @@ def write_headers(headers: tuple[Header, ...], folder: Path, *, force: bool) -> 
             check_overwrite(path)
         previous[path] = path.read_bytes() if path.exists() else None
     written: list[Path] = []
+    results: list[tuple[Path, bool]] = []
     try:
         for path, header in zip(targets, headers, strict=True):
+            if previous[path] == header.text.encode("utf-8"):
+                results.append((path, False))
+                continue
             written.append(write_atomic(path, header.text))
+            results.append((path, True))
     except OutputError:
         for path in written:
             old = previous[path]
@@ -152,11 +159,11 @@ def write_headers(headers: tuple[Header, ...], folder: Path, *, force: bool) -> 
             else:
                 write_atomic(path, old)
         raise
-    return written
+    return results
 
 
 def render_spec(spec_path: Path, folder: Path, *, calibration: Path | None = None,
-                force: bool = False) -> list[Path]:
+                force: bool = False) -> list[tuple[Path, bool]]:
     """``hosttool render``: the headers of a spec file into ``folder``.
 
     With ``calibration`` (a passed unit's CAL.json for this spec), that unit's constants

@@ -293,3 +293,14 @@ def test_header_values_read_back_by_the_compiler(spec: Path, tmp_path: Path) -> 
     shown = subprocess.run([str(program.with_suffix(".out"))], capture_output=True,
                            text=True, check=True)
     assert [int(v) for v in shown.stdout.split()] == expected
+
+
+def test_render_again_leaves_unchanged_files_alone(tmp_path: Path) -> None:
+    # a build tool (make, CMake) compares time stamps: identical bytes must not be rewritten
+    spec = str(Path(__file__).resolve().parent.parent / "examples" / "hive_scale.toml")
+    first = CliRunner().invoke(main, ["render", spec, "-o", str(tmp_path)])
+    assert first.exit_code == 0 and first.stdout.count("wrote ") == 2
+    stamps = {p: p.stat().st_mtime_ns for p in tmp_path.iterdir()}
+    again = CliRunner().invoke(main, ["render", spec, "-o", str(tmp_path)])
+    assert again.exit_code == 0 and again.stdout.count("unchanged ") == 2
+    assert {p: p.stat().st_mtime_ns for p in tmp_path.iterdir()} == stamps
