@@ -7,7 +7,7 @@ gives the stable JSON object of ``hosttool check --json`` (keys documented in th
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 
 import numpy as np
 
@@ -219,7 +219,7 @@ def _with_warnings(b: Budget) -> Budget:
             warnings.append(f"mains {m.frequency_hz:g} Hz (+-1 %) lands at {lo:.3g}..{hi:.3g} Hz, "
                             f"inside the {b.signal_band_hz:g} Hz signal band, with only "
                             f"{m.worst_rejection_db:.1f} dB of sinc rejection")
-    return Budget(**{**b.__dict__, "warnings": tuple(warnings)})
+    return replace(b, warnings=tuple(warnings))
 
 
 def budget_text(b: Budget, *, with_warnings: bool = True) -> str:

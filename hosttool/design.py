@@ -20,8 +20,8 @@ from hosttool.bridge import bridge_of
 from hosttool.budget import Budget, compute_budget, signal_band
 from hosttool.errors import DesignError
 from hosttool.filter_response import ChainReport, analyse_chain
-from hosttool.filters import FirStage, Stage, design_chain
-from hosttool.fixedpoint import INT32_MAX, QFormat, frac_bits_for, quantise
+from hosttool.filters import Stage, design_chain
+from hosttool.fixedpoint import INT32_MAX, frac_bits_for, quantise
 from hosttool.headroom import CascadeAnalysis, NodeBound, analyse_cascade, node_bounds
 from hosttool.spec import Spec
 
@@ -64,11 +64,6 @@ class Linearisation:
     norm_shift: int             # K: |s| <= 2^K over the whole ADC range
     coeffs: tuple[float, ...]   # nominal c_0 .. c_n before quantisation
     fit_residual_lsb: float     # max |p - exact inverse| over the range (0 for polynomial)
-
-    @property
-    def slope_bound(self) -> float:
-        """Upper bound on |p'(w)| for |w| <= 1: how much input error p can amplify."""
-        return sum(k * abs(c) for k, c in enumerate(self.coeffs))
 
 
 @dataclass(frozen=True)
@@ -163,11 +158,6 @@ class Design:
     def output_rate_hz(self) -> float:
         """Output samples per second."""
         return self.spec.adc.data_rate_sps / self.decimation
-
-    @property
-    def chain_lsb_counts(self) -> float:
-        """One chain word LSB in ADC counts, 2^-G."""
-        return math.ldexp(1.0, -self.guard_bits)
 
     def with_constants(self, constants: UnitConstants) -> Design:
         """The same design carrying one unit's constants (bounds recomputed for them).
@@ -454,11 +444,3 @@ def make_design(spec: Spec, constants: UnitConstants | None = None) -> Design:
                   stages=stages, cascade=cascade, nodes=nodes, scale=scale,
                   linearisation=lin, temperature=temp, nominal=nominal,
                   filter_report=report, **unit)  # type: ignore[arg-type]
-
-
-def coefficient_format(stage: Stage) -> QFormat:
-    """The coefficient Q format of a stage (the widest of its sections for a biquad stage)."""
-    if isinstance(stage, FirStage):
-        return stage.fmt
-    return min((s.fmt for s in stage.sections), key=lambda f: f.frac)
-

@@ -44,17 +44,6 @@ class QFormat:
         """Smallest stored integer, -2^(word-1)."""
         return -(1 << (self.word - 1))
 
-    @property
-    def step(self) -> float:
-        """Value of one LSB, 2^-frac."""
-        return math.ldexp(1.0, -self.frac)
-
-
-def round_shift(x: int, k: int) -> int:
-    """(x + 2^(k-1)) >> k with floor shift (round half up); identity for k = 0."""
-    if k < 0:
-        raise ValueError("shift must be >= 0")
-    return x if k == 0 else (x + (1 << (k - 1))) >> k
 
 
 def round_shift_array(x: NDArray[np.int64], k: int) -> NDArray[np.int64]:
@@ -62,16 +51,6 @@ def round_shift_array(x: NDArray[np.int64], k: int) -> NDArray[np.int64]:
     if k < 0:
         raise ValueError("shift must be >= 0")
     return x if k == 0 else (x + np.int64(1 << (k - 1))) >> np.int64(k)
-
-
-def sat32(x: int) -> int:
-    """Clamp to the int32 range."""
-    return INT32_MIN if x < INT32_MIN else INT32_MAX if x > INT32_MAX else x
-
-
-def sat32_array(x: NDArray[np.int64]) -> NDArray[np.int64]:
-    """Element-wise sat32 of an int64 array."""
-    return np.clip(x, INT32_MIN, INT32_MAX)
 
 
 def quantise(value: float, frac: int) -> int:
@@ -96,10 +75,3 @@ def frac_bits_for(max_magnitude: float, word: int) -> int:
     while quantise(max_magnitude, frac) > (1 << (word - 1)) - 1:
         frac -= 1
     return frac
-
-
-def headroom_bits(bound: float, word: int = 32) -> float:
-    """log2 of (largest magnitude of a signed ``word``) / bound: spare bits above the bound."""
-    if bound <= 0:
-        return float(word - 1)
-    return math.log2(((1 << (word - 1)) - 1) / bound)

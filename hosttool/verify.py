@@ -10,7 +10,7 @@ constants) is within the design's proven bound and no node saturated.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable, Sequence
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -361,8 +361,3 @@ def _test_reason(t: TestResult) -> str:
         nodes = ", ".join(k for k, v in t.saturations.items() if v)
         return f"{t.name}: saturation at {nodes}"
     return f"{t.name}: error {t.max_error_lsb:.4g} LSB above the bound {t.bound_lsb:.4g}"
-
-
-def names(v: Verification) -> Sequence[str]:
-    """Names of the dynamic tests, in order."""
-    return [t.name for t in v.tests]
