@@ -1,3 +1,3 @@
 """hosttool: integer constants, C headers, proofs and calibration blocks for bridge sensors."""
 
-__version__ = "0.1.0"
+__version__ = "0.2.0"

@@ -50,6 +50,7 @@ class Scale:
     shift: int
     ideal: float                # nominal output LSB per chain LSB
     multiplier_range: float     # largest |M / 2^S| the format must hold (span tolerance)
+    multiplier_limit: int       # largest |M| accepted: multiplier_range on the M grid
 
     def realised(self, multiplier: int) -> float:
         """M / 2^S."""
@@ -193,7 +194,10 @@ def _scale(spec: Spec, budget: Budget, guard_bits: int) -> Scale:
         raise DesignError(f"{spec.source}: output.resolution: {spec.output.resolution:g} is "
                           "finer than one chain LSB can reach; the scale multiplier needs a "
                           "negative shift")
-    return Scale(shift=shift, ideal=ideal, multiplier_range=widest)
+    # Rounded to the nearest M (not floored): the span tolerance of a round-numbered design
+    # lands on an integer, and float noise must not move the limit by one.
+    limit = min(INT32_MAX, quantise(widest, shift))
+    return Scale(shift=shift, ideal=ideal, multiplier_range=widest, multiplier_limit=limit)
 
 
 def _linearisation(spec: Spec, budget: Budget, output_bound: float) -> Linearisation | None:
@@ -262,15 +266,18 @@ def _nominal(spec: Spec, budget: Budget, g: int, scale: Scale, lin: Linearisatio
         tc_zero=tc_zero, tc_span=tc_span)
 
 
+def offset_limit(bits: int, g: int) -> int:
+    """Largest |offset| accepted, counts * 2^G: the ADC's range."""
+    return 1 << (bits - 1 + g)
+
+
 def check_constants(c: UnitConstants, *, bits: int, g: int, scale: Scale,
                     lin: Linearisation | None, temp: TempComp | None, source: str) -> None:
     """Refuse per-unit constants outside the formats the range proof assumed."""
-    offset_limit = 1 << (bits - 1 + g)
-    if abs(c.offset) > offset_limit:
+    if abs(c.offset) > offset_limit(bits, g):
         raise DesignError(f"{source}: zero offset {c.offset / 2 ** g:.1f} counts lies outside "
                           "the ADC range")
-    if abs(scale.realised(c.scale_mul)) > scale.multiplier_range * (1 + 1e-12) \
-            or abs(c.scale_mul) > INT32_MAX:
+    if abs(c.scale_mul) > scale.multiplier_limit:
         raise DesignError(f"{source}: span multiplier {c.scale_mul} is beyond the span "
                           "tolerance the design's format holds (calibration.span_tolerance_pct)")
     if lin is not None and len(c.lin) != len(lin.coeffs):
@@ -387,7 +394,7 @@ def _static_nodes(chain_bound: float, scale: Scale, lin: Linearisation | None,
     their formats accept (or the unit's, if wider), so the proof holds for every unit that
     calibration can produce, not only for the constants in force.
     """
-    m = max(abs(c.scale_mul), scale.multiplier_range * 2.0 ** scale.shift)
+    m = float(max(abs(c.scale_mul), scale.multiplier_limit))
     nodes = [NodeBound("scale.product", 0.0, 0.0, chain_bound * m + 2.0 ** (scale.shift - 1),
                        64, rate_hz)]
     bound = chain_bound * m / 2.0 ** scale.shift + 0.5

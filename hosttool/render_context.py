@@ -12,7 +12,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from hosttool import calblock
-from hosttool.design import LIN_FRAC, Design
+from hosttool.design import LIN_FRAC, Design, offset_limit
 from hosttool.errors import DesignError
 from hosttool.filters import BiquadStage, FirStage
 from hosttool.fixedpoint import INT32_MAX, INT32_MIN, QFormat
@@ -21,14 +21,44 @@ from hosttool.fixedpoint import INT32_MAX, INT32_MIN, QFormat
 MAX_SHIFT = 62
 
 
+#: Sub-steps of a format's step to which a design value is rounded before it is printed: the
+#: printed text is then a function of an integer and the exact step, so a few ULPs of noise in
+#: the float design (another BLAS kernel, numpy or CPU) cannot change a byte of the header.
+DESIGN_SUBSTEPS = 256
+#: Decimal places of the error figures in the proof comment, in output LSB.
+ERROR_PLACES = 3
+
+
+def on_grid(value: float, frac: int, substeps: int = DESIGN_SUBSTEPS) -> float:
+    """``value`` rounded to the nearest 1/``substeps`` of the step 2^-``frac``.
+
+    The result is an exact dyadic rational (an integer times a power of two), so its decimal
+    form is the same on every machine.
+    """
+    grid = math.ldexp(1.0, -frac) / substeps
+    return round(value / grid) * grid
+
+
+def decimal_places(value: float, places: int) -> str:
+    """``value`` rounded to ``places`` decimals, as fixed-point text (never "-0.000")."""
+    scaled = round(value * 10 ** places)
+    sign = "-" if scaled < 0 else ""
+    whole, part = divmod(abs(scaled), 10 ** places)
+    return f"{sign}{whole}.{part:0{places}d}" if places else f"{sign}{whole}"
+
+
 @dataclass(frozen=True)
 class Const:
-    """One integer constant: value, real value and its Q format name."""
+    """One integer constant: value, real value and its Q format name.
+
+    ``design`` is the unquantised design value rounded by ``on_grid`` to 1/256 of the
+    format's step, where there is one.
+    """
 
     value: int
     real: float
     q: str
-    design: float | None = None   # the unquantised design value, where there is one
+    design: float | None = None
 
     @property
     def range_log2(self) -> int:
@@ -52,7 +82,7 @@ def _shift(value: int, what: str, source: str) -> int:
 def _const(value: int, frac: int, what: str, source: str, design: float | None = None,
            word: int = 32) -> Const:
     return Const(_int32(value, what, source), math.ldexp(value, -frac),
-                 QFormat(word, frac).name, design)
+                 QFormat(word, frac).name, None if design is None else on_grid(design, frac))
 
 
 def _fir(i: int, stage: FirStage, src: str) -> dict[str, Any]:
@@ -76,12 +106,6 @@ def _biquads(i: int, stage: BiquadStage, src: str) -> dict[str, Any]:
     return {"fir": False, "sections": sections}
 
 
-def scale_mul_limit(d: Design) -> int:
-    """Largest |M| that design.check_constants accepts for the span multiplier."""
-    widest = d.scale.multiplier_range * (1 + 1e-12)
-    return min(INT32_MAX, math.floor(math.ldexp(widest, d.scale.shift)))
-
-
 def design_context(d: Design) -> dict[str, Any]:
     """Everything design.h.j2 prints."""
     src, c, g = d.spec.source, d.constants, d.guard_bits
@@ -103,18 +127,17 @@ def design_context(d: Design) -> dict[str, Any]:
         "guard_bits": _shift(g, "guard_bits", src),
         "input_bound_log2": d.input_bound.bit_length() - 1,
         "offset": _const(c.offset, g, "offset", src),
-        "offset_limit": 1 << (bits - 1 + g),
+        "offset_limit": offset_limit(bits, g),
         "stages": stages,
         "fir_count": sum(1 for s in stages if s["fir"]),
         "section_count": sum(len(s["sections"]) for s in stages if not s["fir"]),
         "decimation": d.decimation, "output_rate_hz": d.output_rate_hz,
         "scale": {"mul": _const(c.scale_mul, d.scale.shift, "scale_mul", src, d.scale.ideal),
                   "shift": _shift(d.scale.shift, "scale.shift", src),
-                  "limit": scale_mul_limit(d)},
+                  "limit": d.scale.multiplier_limit},
         "lin": None, "temp": None,
         "lin_frac": LIN_FRAC,
-        "nodes": d.all_nodes, "errors": d.errors, "error_bound": d.error_bound_lsb,
-        "ideal_error_bound": d.ideal_error_bound_lsb, "output_bound": d.output_bound_lsb,
+        "proof": proof_context(d),
         "resolution": d.spec.output.resolution, "unit": d.spec.sensor.unit,
         "warnings": d.warnings,
     }
@@ -133,11 +156,51 @@ def design_context(d: Design) -> dict[str, Any]:
             "zero_shift": _shift(temp.zero_shift, "temperature.zero_shift", src),
             "span": _const(c.tc_span, temp.span_shift + LIN_FRAC, "tc_span", src),
             "span_shift": _shift(temp.span_shift, "temperature.span_shift", src),
-            "zero_range": temp.zero_range, "span_range": temp.span_range}
+            "zero_range": f"{temp.zero_range:.6g}", "span_range": f"{temp.span_range:.6g}"}
         for value, what in ((temp.reference_centi, "reference_c"), (temp.min_centi, "min_c"),
                             (temp.max_centi, "max_c")):
             _int32(value, f"temperature.{what} (0.01 C)", src)
     return out
+
+
+def _node_bound(bound: float, word: int) -> tuple[str, str]:
+    """A node's worst case and headroom as text, each rounded on a grid fixed by its word.
+
+    An int32 node holds integers far below 2^53, so its bound is printed as the nearest
+    integer; an int64 accumulator's float bound carries noise in its last few integer
+    digits, so it is printed to 6 significant digits. The headroom (two decimals) comes from
+    the printed value.
+    """
+    limit = (1 << (word - 1)) - 1
+    shown: float = math.floor(bound + 0.5) if word == 32 else float(f"{bound:.6g}")
+    headroom = math.log2(limit / shown) if shown > 0 else float(word - 1)
+    text = f"{int(shown)}" if word == 32 else f"{shown:.6g}"
+    return text, decimal_places(headroom, 2)
+
+
+def proof_context(d: Design) -> dict[str, Any]:
+    """The proof figures of the header comment, each rounded to a grid fixed by its unit.
+
+    Node bounds as ``_node_bound`` prints them, errors in output LSB to ERROR_PLACES decimals: the text does not depend on the last
+    bits of the float analysis.
+    """
+    nodes = [dict(zip(("bound", "headroom"), _node_bound(n.bound, n.word), strict=True))
+             | {"name": n.name, "word": n.word} for n in d.all_nodes]
+    places = ERROR_PLACES
+    errors = [{"name": e.name, "worst": decimal_places(e.worst_lsb, places),
+               "rms": decimal_places(e.rms_lsb, places)} for e in d.errors]
+    resolution = d.spec.output.resolution
+    return {"nodes": nodes, "errors": errors,
+            "error_bound": decimal_places(d.error_bound_lsb, places),
+            "error_bound_units": decimal_places(d.error_bound_lsb * resolution,
+                                                places + _decimals_of(resolution)),
+            "ideal_error_bound": decimal_places(d.ideal_error_bound_lsb, places),
+            "output_bound": _node_bound(d.output_bound_lsb, 32)[0], "places": places}
+
+
+def _decimals_of(step: float) -> int:
+    """Decimal places needed to write a multiple of ``step`` (0 for steps of 1 or more)."""
+    return max(0, -math.floor(math.log10(step))) if step > 0 else 0
 
 
 def calblock_context(d: Design) -> dict[str, Any]:

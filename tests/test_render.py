@@ -25,7 +25,6 @@ from hosttool.csyntax import c_prefix, c_string, comment_text
 from hosttool.design import check_constants, make_design
 from hosttool.errors import DesignError
 from hosttool.render import file_names, render_headers
-from hosttool.render_context import scale_mul_limit
 from hosttool.spec import load_spec, parse_spec
 
 EXAMPLES = sorted((Path(__file__).resolve().parent.parent / "examples").glob("*.toml"))
@@ -247,9 +246,9 @@ def test_layout_assertions_can_fail(tmp_path: Path) -> None:
 
 @pytest.mark.parametrize("spec", EXAMPLES, ids=IDS)
 def test_scale_limit_is_the_design_check(spec: Path) -> None:
-    # The loader's SCALE_MUL_LIMIT must be exactly where design.check_constants draws it.
+    # The design's one integer limit is where check_constants draws the line.
     d = make_design(load_spec(spec))
-    limit = scale_mul_limit(d)
+    limit = d.scale.multiplier_limit
 
     def check(mul: int) -> None:
         c = d.nominal
