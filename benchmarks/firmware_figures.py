@@ -22,12 +22,12 @@ from pathlib import Path
 
 import numpy as np
 
-from hosttool import cbuild
-from hosttool.design import Design, make_design
-from hosttool.firmware_run import build_runner, run_runner
-from hosttool.render import firmware_defines, render_headers, write_headers
-from hosttool.resources import firmware_sources
-from hosttool.spec import load_spec
+from hosttool.codegen.render import firmware_defines, render_headers, write_headers
+from hosttool.design.resolve import Design, make_design
+from hosttool.firmware import build as cbuild
+from hosttool.firmware.run import build_runner, run_runner
+from hosttool.spec.schema import load_spec
+from hosttool.util.resources import firmware_sources
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 PARTS = {"pipeline": ("ht_pipeline.c",), "loader": ("ht_calblock.c", "ht_crc32.c")}

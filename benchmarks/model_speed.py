@@ -11,9 +11,9 @@ from pathlib import Path
 
 import numpy as np
 
-from hosttool.design import make_design
-from hosttool.model import run_integer, run_reference, static_integer, static_reference
-from hosttool.spec import load_spec
+from hosttool.design.model import run_integer, run_reference, static_integer, static_reference
+from hosttool.design.resolve import make_design
+from hosttool.spec.schema import load_spec
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 

@@ -21,10 +21,10 @@ from pathlib import Path
 
 import numpy as np
 
-from hosttool.design import make_design
-from hosttool.lot_sim import lot_csv, random_truth
-from hosttool.production import run_batch
-from hosttool.spec import load_spec
+from hosttool.design.resolve import make_design
+from hosttool.production.batch import run_batch
+from hosttool.production.synthetic_lot import lot_csv, random_truth
+from hosttool.spec.schema import load_spec
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 START = 1_741_075_200

@@ -15,11 +15,11 @@ from pathlib import Path
 
 import numpy as np
 
-from hosttool import verify
-from hosttool.cbuild import missing_tools
-from hosttool.design import make_design
-from hosttool.firmware_run import build_runner, run_runner
-from hosttool.spec import load_spec
+from hosttool.design.resolve import make_design
+from hosttool.firmware.build import missing_tools
+from hosttool.firmware.run import build_runner, run_runner
+from hosttool.spec.schema import load_spec
+from hosttool.verify import proof as verify
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 

@@ -57,8 +57,8 @@ def main(debug: bool) -> None:
 @guarded
 def check(spec: Path, as_json: bool) -> None:
     """Validate SPEC and print the sensor/ADC budget."""
-    from hosttool.budget import budget_text, compute_budget
-    from hosttool.spec import load_spec
+    from hosttool.design.budget import budget_text, compute_budget
+    from hosttool.spec.schema import load_spec
 
     budget = compute_budget(load_spec(spec))
     if as_json:
@@ -74,9 +74,9 @@ def check(spec: Path, as_json: bool) -> None:
 @guarded
 def design(spec: Path, as_json: bool) -> None:
     """Resolve every constant of SPEC with its format, headroom and error bound."""
-    from hosttool.design import make_design
-    from hosttool.design_out import design_json, design_text
-    from hosttool.spec import load_spec
+    from hosttool.commands.design import design_json, design_text
+    from hosttool.design.resolve import make_design
+    from hosttool.spec.schema import load_spec
 
     resolved = make_design(load_spec(spec))
     if as_json:
@@ -102,7 +102,7 @@ def design(spec: Path, as_json: bool) -> None:
 def verify(spec: Path, calibration: Path | None, samples: int, seed: int, engine: str,
            as_json: bool, report: Path | None) -> None:
     """Prove the integer firmware against its float64 reference (exit 0 pass, 1 fail)."""
-    from hosttool.verify_run import run_verify
+    from hosttool.commands.verify import run_verify
 
     verification, text = run_verify(spec, calibration=calibration, samples=samples, seed=seed,
                                     engine=engine, as_json=as_json, report=report)
@@ -121,7 +121,7 @@ def verify(spec: Path, calibration: Path | None, samples: int, seed: int, engine
 @guarded
 def render(spec: Path, folder: Path, calibration: Path | None, force: bool) -> None:
     """Write the C headers of SPEC (design and calibration block) into a folder."""
-    from hosttool.render import render_spec
+    from hosttool.codegen.render import render_spec
 
     for path, changed in render_spec(spec, folder, calibration=calibration, force=force):
         click.echo(f"{'wrote' if changed else 'unchanged'} {path}")
@@ -135,7 +135,7 @@ def render(spec: Path, folder: Path, calibration: Path | None, force: bool) -> N
 @guarded
 def new(path: Path, example: str, force: bool) -> None:
     """Write a commented starter spec to PATH."""
-    from hosttool.starter import write_starter
+    from hosttool.commands.new import write_starter
 
     written = write_starter(path, example, force=force)
     click.echo(f"wrote {written} (from example {example!r}); edit it, then: "
@@ -149,7 +149,7 @@ def new(path: Path, example: str, force: bool) -> None:
 @guarded
 def demo(folder: Path | None, example: str) -> None:
     """Run the whole flow on a bundled example into FOLDER (default: a new folder here)."""
-    from hosttool.demo import run_demo
+    from hosttool.commands.demo import run_demo
 
     for line in run_demo(folder, example):
         click.echo(line)
@@ -166,7 +166,7 @@ def demo(folder: Path | None, example: str) -> None:
 @guarded
 def calibrate(spec: Path, readings: Path, serial: str, out: Path, cal_time: str | None) -> None:
     """Fit one unit's constants from READINGS and judge them (exit 0 pass, 1 fail)."""
-    from hosttool.calibrate_run import run_calibrate
+    from hosttool.commands.calibrate import run_calibrate
 
     result, text = run_calibrate(spec, readings, serial=serial, out=out, cal_time=cal_time)
     click.echo(text, nl=False)
@@ -184,7 +184,7 @@ def calibrate(spec: Path, readings: Path, serial: str, out: Path, cal_time: str 
 @guarded
 def image(spec: Path, calibration: Path, out: Path, merge: Path | None, as_bin: bool) -> None:
     """Write a passed unit's calibration block as Intel HEX at the spec's flash address."""
-    from hosttool.image_run import run_image
+    from hosttool.commands.image import run_image
 
     click.echo(run_image(spec, calibration, out=out, merge=merge, as_bin=as_bin), nl=False)
 
@@ -196,7 +196,7 @@ def image(spec: Path, calibration: Path, out: Path, merge: Path | None, as_bin: 
 @guarded
 def inspect(spec: Path, file: Path, as_json: bool) -> None:
     """Decode and check the calibration block in FILE (HEX, or .bin from image --bin)."""
-    from hosttool.image_run import run_inspect
+    from hosttool.commands.image import run_inspect
 
     data, text = run_inspect(spec, file, as_json=as_json)
     if as_json:
@@ -226,8 +226,8 @@ def inspect(spec: Path, file: Path, as_json: bool) -> None:
 def batch(spec: Path, readings: Path, out: Path, db: Path | None, station: str | None,
           recalibrate: bool, cal_time: str | None, jobs: int) -> None:
     """Calibrate, image and record a lot (exit 0 all passed, 1 some failed, 2 bad input)."""
-    from hosttool.calibrate_run import cal_time_option
-    from hosttool.production import batch_text, run_batch
+    from hosttool.commands.calibrate import cal_time_option
+    from hosttool.production.batch import batch_text, run_batch
 
     def progress(stream: Any, count: int) -> Any:
         with click.progressbar(stream, length=count, label="units", file=sys.stderr) as bar:

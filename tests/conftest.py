@@ -6,7 +6,7 @@ import os
 
 import pytest
 
-from hosttool import cbuild
+from hosttool.firmware import build as cbuild
 
 
 def require_tools(kind: str, *, run: bool) -> None:

@@ -13,7 +13,7 @@ import scipy.signal
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from hosttool.adc import (
+from hosttool.physics.adc import (
     PEAK_TO_PEAK_OVER_RMS,
     Converter,
     alias_hz,
@@ -21,7 +21,7 @@ from hosttool.adc import (
     rejection_db,
     sinc_magnitude,
 )
-from hosttool.spec import Adc
+from hosttool.spec.schema import Adc
 
 
 def adc(gains=(1, 2, 4, 8, 16, 32, 64, 128), margin_pct=10.0, bits=24) -> Adc:

@@ -13,8 +13,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from hosttool.bridge import bridge_of, lead_desensitisation, shunt_calibration
-from hosttool.spec import WIRING_BY_TOPOLOGY, StrainBridge, Transducer
+from hosttool.physics.bridge import bridge_of, lead_desensitisation, shunt_calibration
+from hosttool.spec.schema import WIRING_BY_TOPOLOGY, StrainBridge, Transducer
 
 # --------------------------------------------------------------------------- independent model
 

@@ -16,10 +16,10 @@ import numpy as np
 import pytest
 import scipy.signal
 
-from hosttool.budget import compute_budget
+from hosttool.design.budget import compute_budget
 from hosttool.errors import DesignError
-from hosttool.resources import example_names, example_text
-from hosttool.spec import parse_spec
+from hosttool.spec.schema import parse_spec
+from hosttool.util.resources import example_names, example_text
 
 PRESSURE = """
 schema = 1

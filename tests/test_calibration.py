@@ -1,7 +1,7 @@
 """Per-unit calibration: recovery of invented units, checks against numpy.polyfit, OIML R 76-1,
 refusals of bad readings with one clear line, CAL.json round trip.
 
-Every synthetic reading comes from hosttool.lot_sim (the spec's own bridge and ADC model
+Every synthetic reading comes from hosttool.production.synthetic_lot (the spec's own bridge and ADC model
 with a known zero, span, bow, hysteresis, temperature coefficients and noise); the numbers
 are invented.
 """
@@ -17,15 +17,15 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 
-from hosttool.calibration import Context, calibrate_unit, load_calibration
 from hosttool.cli import main
-from hosttool.design import LIN_FRAC, make_design
+from hosttool.design.model import run_integer, static_integer
+from hosttool.design.resolve import LIN_FRAC, make_design
 from hosttool.errors import InputError
-from hosttool.lot_sim import Plan, UnitTruth, lot_csv
-from hosttool.model import run_integer, static_integer
-from hosttool.oiml import mpe_intervals
-from hosttool.readings import parse_readings
-from hosttool.spec import parse_spec
+from hosttool.formats.readings import parse_readings
+from hosttool.physics.oiml import mpe_intervals
+from hosttool.production.fit import Context, calibrate_unit, load_calibration
+from hosttool.production.synthetic_lot import Plan, UnitTruth, lot_csv
+from hosttool.spec.schema import parse_spec
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 HIVE_TEXT = (EXAMPLES / "hive_scale.toml").read_text()

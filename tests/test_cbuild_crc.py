@@ -15,8 +15,8 @@ from pathlib import Path
 import pytest
 from conftest import require_tools
 
-from hosttool import cbuild
-from hosttool.resources import firmware_sources
+from hosttool.firmware import build as cbuild
+from hosttool.util.resources import firmware_sources
 
 RUN_KINDS = [
     pytest.param("host"),

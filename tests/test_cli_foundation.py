@@ -18,8 +18,8 @@ from click.testing import CliRunner
 
 import hosttool
 from hosttool.cli import main
-from hosttool.resources import example_names
-from hosttool.spec import load_spec
+from hosttool.spec.schema import load_spec
+from hosttool.util.resources import example_names
 
 REPO = Path(__file__).resolve().parent.parent
 
@@ -411,7 +411,7 @@ def test_demo_writes_its_files(tmp_path):
 
 def test_demo_default_folder_is_new_each_time(tmp_path):
     # `hosttool demo` without FOLDER never writes into an existing demo folder
-    from hosttool.demo import _new_folder
+    from hosttool.commands.demo import _new_folder
 
     base = tmp_path / "hosttool-demo"
     assert _new_folder(base) == base

@@ -3,7 +3,7 @@
 Outside references: scipy.signal.lfilter is the float64 reference's filter engine (the
 model's own float path is checked against an independent lfilter/sosfilt call here);
 Widrow's quantisation model (rounding to a step q adds error uniform on [-q/2, q/2],
-variance q^2/12) for the noise prediction; the bridge's exact inverse (hosttool.bridge,
+variance q^2/12) for the noise prediction; the bridge's exact inverse (hosttool.physics.bridge,
 itself tested against the bridge equation in test_bridge.py) for the linearisation.
 """
 
@@ -19,14 +19,14 @@ import pytest
 from click.testing import CliRunner
 from scipy import signal
 
-from hosttool.adc import Converter
-from hosttool.bridge import bridge_of
 from hosttool.cli import main
-from hosttool.design import Design, UnitConstants, make_design
+from hosttool.design.filters import FirStage
+from hosttool.design.model import run_integer, run_reference, static_integer, static_reference
+from hosttool.design.resolve import Design, UnitConstants, make_design
 from hosttool.errors import DesignError
-from hosttool.filters import FirStage
-from hosttool.model import run_integer, run_reference, static_integer, static_reference
-from hosttool.spec import load_spec, parse_spec
+from hosttool.physics.adc import Converter
+from hosttool.physics.bridge import bridge_of
+from hosttool.spec.schema import load_spec, parse_spec
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 

@@ -18,8 +18,8 @@ from fxpmath import Fxp
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from hosttool.errors import DesignError
-from hosttool.filter_response import (
+from hosttool.design.filters import Biquad, BiquadStage, FirStage, design_chain, design_stage
+from hosttool.design.response import (
     POLE_TOLERANCE,
     analyse_chain,
     group_delay_dc_s,
@@ -28,8 +28,8 @@ from hosttool.filter_response import (
     pole_reports,
     settling_times,
 )
-from hosttool.filters import Biquad, BiquadStage, FirStage, design_chain, design_stage
-from hosttool.spec import FilterStage, load_spec
+from hosttool.errors import DesignError
+from hosttool.spec.schema import FilterStage, load_spec
 
 WIDTHS = (16, 32)
 

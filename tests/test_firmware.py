@@ -1,10 +1,10 @@
-"""The C reference firmware gives exactly hosttool.model.run_integer's outputs.
+"""The C reference firmware gives exactly hosttool.design.model.run_integer's outputs.
 
 Built by gcc for the host (also with -fsanitize=undefined,address), and by arm-none-eabi-gcc
 for Cortex-M4 (QEMU mps2-an386) and Cortex-M3 (mps2-an385); Cortex-M0+ is a build check.
 Outside references: the C compilers and the emulated instruction sets produce the numbers
 compared with the Python model; zlib.crc32 makes the CRC of every hand-altered calibration
-block; the Python decoder (hosttool.calblock) must refuse the same blocks the C loader does.
+block; the Python decoder (hosttool.formats.calblock) must refuse the same blocks the C loader does.
 """
 
 from __future__ import annotations
@@ -22,16 +22,19 @@ import pytest
 from click.testing import CliRunner
 from conftest import require_tools
 
-from hosttool import calblock, calfile, cbuild
-from hosttool.c_engine import host_engine
 from hosttool.cli import main
-from hosttool.design import Design, UnitConstants, make_design
+from hosttool.codegen.render import firmware_defines, render_headers, write_headers
+from hosttool.design.fixedpoint import quantise
+from hosttool.design.model import run_integer
+from hosttool.design.resolve import Design, UnitConstants, make_design
 from hosttool.errors import HostToolError
-from hosttool.firmware_run import HT_RUNNER, RunnerOutput, build_runner, parse_run, run_runner
-from hosttool.fixedpoint import quantise
-from hosttool.model import run_integer
-from hosttool.render import firmware_defines, render_headers, write_headers
-from hosttool.spec import load_spec
+from hosttool.firmware import build as cbuild
+from hosttool.firmware.compiled_model import host_engine
+from hosttool.firmware.run import HT_RUNNER, RunnerOutput, build_runner, parse_run, run_runner
+from hosttool.formats import calblock
+from hosttool.formats import caljson as calfile
+from hosttool.spec.schema import load_spec
+from hosttool.util.resources import firmware_sources
 
 EXAMPLES = sorted((Path(__file__).resolve().parent.parent / "examples").glob("*.toml"))
 DESIGNS = {p.stem: make_design(load_spec(p)) for p in EXAMPLES}
@@ -49,7 +52,7 @@ def _temps(d: Design, rng: np.random.Generator, n: int) -> np.ndarray | None:
 def worst_pattern(d: Design) -> np.ndarray:
     """The sign pattern of the whole cascade's response at full scale, ending on an output.
 
-    Response.signs() drives the chain output to +L1 (hosttool.impulse); each sign becomes
+    Response.signs() drives the chain output to +L1 (hosttool.design.impulse); each sign becomes
     the highest or lowest code, zeros in front align its end with a decimated output.
     """
     limit = 1 << (d.spec.adc.bits - 1)
@@ -264,7 +267,7 @@ def test_firmware_builds_with_conversion_warnings(name: str, tmp_path: Path) -> 
     require_tools("host", run=False)
     d = DESIGNS[name]
     gen = _gen(d, tmp_path)
-    src = Path(cbuild.__file__).resolve().parent.parent / "firmware_stub"
+    src = Path(str(firmware_sources()))
     done = subprocess.run(
         ["gcc", *cbuild.COMMON_FLAGS, "-O2", "-Wconversion", "-Wsign-conversion", "-Wshadow",
          *(f"-D{x}" for x in firmware_defines(d)), f"-I{src}", f"-I{gen}", "-fsyntax-only",
@@ -294,7 +297,7 @@ def test_stale_or_mixed_headers_fail_the_build(macro: str, message: str,
 
 def test_makefile_lists_the_runner_sources() -> None:
     # firmware_stub/Makefile builds by hand what cbuild builds from Python.
-    text = (Path(cbuild.__file__).resolve().parent.parent / "firmware_stub" / "Makefile"
+    text = (Path(str(firmware_sources())) / "Makefile"
             ).read_text(encoding="utf-8")
     found = re.search(r"^ht_runner_SRCS := (.*)$", text, re.M)
     assert found is not None and found.group(1).split() == list(HT_RUNNER.sources)
@@ -359,7 +362,7 @@ def test_c_engine_of_verify_is_the_host_build() -> None:
 
 def test_demo_builds_and_checks_the_host_firmware(tmp_path: Path) -> None:
     require_tools("host", run=True)
-    from hosttool.demo import run_demo
+    from hosttool.commands.demo import run_demo
 
     lines = list(run_demo(tmp_path / "demo", "hive_scale"))
     assert any(line.startswith("render  ") for line in lines)

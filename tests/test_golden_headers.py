@@ -21,12 +21,13 @@ import numpy as np
 import pytest
 from conftest import require_tools
 
-from hosttool import __version__, cbuild
-from hosttool.design import make_design
-from hosttool.firmware_run import HT_RUNNER, run_runner
-from hosttool.model import run_integer
-from hosttool.render import firmware_defines, render_headers
-from hosttool.spec import load_spec
+from hosttool import __version__
+from hosttool.codegen.render import firmware_defines, render_headers
+from hosttool.design.model import run_integer
+from hosttool.design.resolve import make_design
+from hosttool.firmware import build as cbuild
+from hosttool.firmware.run import HT_RUNNER, run_runner
+from hosttool.spec.schema import load_spec
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 GOLDEN = Path(__file__).resolve().parent / "golden"

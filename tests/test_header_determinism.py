@@ -20,9 +20,9 @@ from typing import Any
 import numpy as np
 import pytest
 
-from hosttool.design import make_design
-from hosttool.render import render_headers
-from hosttool.spec import load_spec
+from hosttool.codegen.render import render_headers
+from hosttool.design.resolve import make_design
+from hosttool.spec.schema import load_spec
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 NAMES = ["hive_scale", "fatigue_coupon"]
@@ -78,8 +78,8 @@ def test_headers_do_not_move_with_float_noise(name: str, ulps: int) -> None:
         assert a.text == b.text, a.name
 
 
-_RENDER = ("import sys; from hosttool.design import make_design; "
-           "from hosttool.render import render_headers; from hosttool.spec import load_spec; "
+_RENDER = ("import sys; from hosttool.design.resolve import make_design; "
+           "from hosttool.codegen.render import render_headers; from hosttool.spec.schema import load_spec; "
            "sys.stdout.write(''.join(h.text for h in "
            "render_headers(make_design(load_spec(sys.argv[1])))))")
 

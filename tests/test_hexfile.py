@@ -18,15 +18,16 @@ from click.testing import CliRunner
 from conftest import require_tools
 from intelhex import IntelHex
 
-from hosttool import calblock, cbuild
-from hosttool.calblock import BLOCK_SIZE, decode, encode
 from hosttool.cli import main
-from hosttool.design import UnitConstants, make_design
+from hosttool.design.model import run_integer
+from hosttool.design.resolve import UnitConstants, make_design
 from hosttool.errors import InputError
-from hosttool.lot_sim import UnitTruth, lot_csv
-from hosttool.model import run_integer
-from hosttool.readings import parse_time_utc
-from hosttool.spec import parse_spec
+from hosttool.firmware import build as cbuild
+from hosttool.formats import calblock
+from hosttool.formats.calblock import BLOCK_SIZE, decode, encode
+from hosttool.formats.readings import parse_time_utc
+from hosttool.production.synthetic_lot import UnitTruth, lot_csv
+from hosttool.spec.schema import parse_spec
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 SPEC = EXAMPLES / "hive_scale.toml"
@@ -186,7 +187,7 @@ def test_block_below_64_kib_needs_no_extended_address() -> None:
     bincopy reading the result."""
     text = SPEC.read_text().replace("calblock_address = 0x0003F800", "calblock_address = 0x8000")
     design = make_design(parse_spec(text, "low.toml"))
-    from hosttool.hexfile import block_image, hex_text
+    from hosttool.formats.hexfile import block_image, hex_text
 
     image = hex_text(block_image(design, encode(design, design.nominal, serial="L",
                                                 cal_time_utc=0)))
@@ -245,7 +246,7 @@ def test_c_loader_refuses_every_flip_and_runs_the_image_bit_exact(
     integer model with the unit's constants. One runner invocation: every damaged block,
     then the good one, then codes."""
     require_tools(kind, run=True)
-    from hosttool.firmware_run import build_runner, parse_run, runner_input
+    from hosttool.firmware.run import build_runner, parse_run, runner_input
 
     image = IntelHex(str(unit["hex"])).tobinstr(start=ADDRESS, size=AREA)
     block, constants = _block_of(unit["cal"])

@@ -21,10 +21,10 @@ import numpy as np
 import pytest
 from intelhex import IntelHex
 
-from hosttool.calblock import decode
-from hosttool.design import make_design
-from hosttool.lot_sim import UnitTruth, lot_csv, random_truth
-from hosttool.spec import parse_spec
+from hosttool.design.resolve import make_design
+from hosttool.formats.calblock import decode
+from hosttool.production.synthetic_lot import UnitTruth, lot_csv, random_truth
+from hosttool.spec.schema import parse_spec
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 SPEC = EXAMPLES / "hive_scale.toml"

@@ -19,13 +19,13 @@ import pytest
 from click.testing import CliRunner
 from conftest import require_tools
 
-from hosttool import calblock
 from hosttool.cli import main
-from hosttool.csyntax import c_prefix, c_string, comment_text
-from hosttool.design import check_constants, make_design
+from hosttool.codegen.csyntax import c_prefix, c_string, comment_text
+from hosttool.codegen.render import file_names, render_headers
+from hosttool.design.resolve import check_constants, make_design
 from hosttool.errors import DesignError
-from hosttool.render import file_names, render_headers
-from hosttool.spec import load_spec, parse_spec
+from hosttool.formats import calblock
+from hosttool.spec.schema import load_spec, parse_spec
 
 EXAMPLES = sorted((Path(__file__).resolve().parent.parent / "examples").glob("*.toml"))
 IDS = [p.stem for p in EXAMPLES]

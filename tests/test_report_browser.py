@@ -16,10 +16,10 @@ import numpy as np
 import pytest
 from matplotlib import image as mpimg
 
-from hosttool.design import make_design
-from hosttool.report import REALISED, write_report
-from hosttool.spec import load_spec
-from hosttool.verify import verify_design
+from hosttool.design.resolve import make_design
+from hosttool.spec.schema import load_spec
+from hosttool.verify.proof import verify_design
+from hosttool.verify.report import REALISED, write_report
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",

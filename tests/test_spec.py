@@ -9,8 +9,8 @@ import tomllib
 import pytest
 
 from hosttool.errors import SpecError
-from hosttool.resources import example_names, example_text
-from hosttool.spec import DEFAULT_PGA_GAINS, load_spec, parse_spec
+from hosttool.spec.schema import DEFAULT_PGA_GAINS, load_spec, parse_spec
+from hosttool.util.resources import example_names, example_text
 
 MINIMAL_GAUGE = """\
 schema = 1

@@ -16,9 +16,9 @@ import pytest
 from click.testing import CliRunner
 
 from hosttool.cli import main
-from hosttool.design import make_design
-from hosttool.spec import load_spec, parse_spec
-from hosttool.verify import minimum_samples, verify_design
+from hosttool.design.resolve import make_design
+from hosttool.spec.schema import load_spec, parse_spec
+from hosttool.verify.proof import minimum_samples, verify_design
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 SAMPLES = 200_000
@@ -107,7 +107,7 @@ def test_minimum_samples_and_seed_reproducibility() -> None:
 
 def test_disagreeing_engine_fails_the_verdict() -> None:
     design = make_design(load_spec(EXAMPLES / "fatigue_coupon.toml"))
-    from hosttool.model import run_integer
+    from hosttool.design.model import run_integer
 
     def off_by_one(codes: np.ndarray, temps: np.ndarray | None) -> np.ndarray:
         out = run_integer(design, codes, temps).output.copy()
@@ -140,7 +140,7 @@ def test_failing_spec_without_budget_is_still_verified() -> None:
 
 def _unit_calibration(tmp_path: Path) -> Path:
     """A CAL.json of one invented hive-scale unit, through the real calibrate command."""
-    from hosttool.lot_sim import UnitTruth, lot_csv
+    from hosttool.production.synthetic_lot import UnitTruth, lot_csv
 
     design = make_design(load_spec(EXAMPLES / "hive_scale.toml"))
     truth = UnitTruth("HV-7", zero_mv_per_v=0.04, span_error_pct=3.0,

@@ -1,0 +1,267 @@
+"""The sensor/ADC budget: full-scale output, PGA choice, range use, noise-free resolution, mains.
+
+``compute_budget`` turns a validated spec into plain numbers (``Budget``); ``Budget.to_json``
+gives the stable JSON object of ``hosttool check --json`` (keys documented in the README).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, replace
+
+import numpy as np
+
+from hosttool import __version__
+from hosttool.errors import DesignError
+from hosttool.physics.adc import (
+    PEAK_TO_PEAK_OVER_RMS,
+    Converter,
+    alias_hz,
+    best_gain,
+    rejection_db,
+    sinc_magnitude,
+)
+from hosttool.physics.bridge import bridge_of, lead_desensitisation
+from hosttool.spec.schema import Spec
+from hosttool.util.tables import Row, num, sections, table
+
+MAINS_HZ = (50.0, 60.0)
+#: Mains frequency may wander +-1 % (EN 50160 limit for 99.5 % of a year on
+#: interconnected systems; from memory). The worst rejection is searched over that band.
+MAINS_TOLERANCE = 0.01
+#: Below this much sinc rejection, mains landing in the signal band is worth a warning.
+MAINS_WARN_REJECTION_DB = 60.0
+RANGE_USED_LOW_PCT = 25.0
+RANGE_USED_HIGH_PCT = 95.0
+
+
+@dataclass(frozen=True)
+class MainsLine:
+    """How one mains frequency fares through the ADC."""
+
+    frequency_hz: float
+    rejection_db: float           # sinc^k at the nominal frequency (300 = exact notch)
+    worst_rejection_db: float     # least sinc^k rejection within +-1 % of nominal
+    alias_hz: float               # where nominal mains lands after sampling at the data rate
+    alias_band_hz: tuple[float, float]  # where the +-1 % band lands
+    in_band: bool                 # some of that band lands inside the signal band
+
+
+@dataclass(frozen=True)
+class Budget:
+    """Every figure of the sensor/ADC budget; units are in the field names."""
+
+    spec_name: str
+    spec_sha256: str
+    unit: str
+    range_min: float
+    range_max: float
+    resolution: float
+    bridge_resistance_ohm: float
+    excitation_v: float
+    reference_v: float
+    excitation_current_ma: float
+    excitation_power_mw: float
+    full_scale_mv_per_v: float
+    full_scale_output_mv: float
+    zero_offset_mv_per_v: float
+    sensitivity_uv_per_v_per_unit: float
+    nonlinearity_pct_fs: float
+    lead_desensitisation: float
+    pga_gain: int
+    pga_auto: bool
+    input_range_mv: float
+    lsb_nv: float
+    peak_input_mv: float
+    range_used_pct: float
+    counts_per_unit: float
+    counts_per_lsb: float
+    full_scale_counts: float
+    span_counts: float
+    noise_counts_rms: float
+    effective_bits: float
+    noise_free_bits: float
+    noise_free_counts: float
+    noise_free_resolution: float
+    noise_free_divisions: float
+    requested_divisions: float
+    signal_band_hz: float
+    mains: tuple[MainsLine, ...]
+    warnings: tuple[str, ...]
+
+    def to_json(self) -> dict[str, object]:
+        """The stable JSON object of ``hosttool check --json``."""
+        data = asdict(self)
+        data["mains"] = [asdict(m) | {"alias_band_hz": list(m.alias_band_hz)} for m in self.mains]
+        data["warnings"] = list(self.warnings)
+        return {"tool_version": __version__, "kind": "budget", **data}
+
+    def converter(self, bits: int) -> Converter:
+        """The ADC at the chosen gain."""
+        return Converter(bits=bits, gain=self.pga_gain, reference_v=self.reference_v)
+
+
+def signal_band(spec: Spec) -> float:
+    """Signal band edge, Hz: output.bandwidth_hz, else the lowest filter corner, else Nyquist."""
+    if spec.output.bandwidth_hz is not None:
+        return spec.output.bandwidth_hz
+    corners = [s.cutoff_hz for s in spec.filter.stages if s.cutoff_hz is not None]
+    return min(corners) if corners else spec.adc.data_rate_sps / 2
+
+
+def _mains(spec: Spec, band_hz: float) -> tuple[MainsLine, ...]:
+    fd = spec.adc.data_rate_sps
+    n = spec.adc.modulator_rate_hz / fd if spec.adc.modulator_rate_hz else None
+    lines = []
+    for f in MAINS_HZ:
+        sweep = np.linspace(f * (1 - MAINS_TOLERANCE), f * (1 + MAINS_TOLERANCE), 2001)
+        mags = sinc_magnitude(sweep, fd, spec.adc.sinc_order, n)
+        aliases = np.abs(sweep - fd * np.round(sweep / fd))
+        nominal = float(sinc_magnitude(f, fd, spec.adc.sinc_order, n))
+        in_band_mask = aliases <= band_hz
+        lines.append(MainsLine(
+            frequency_hz=f,
+            rejection_db=rejection_db(nominal),
+            worst_rejection_db=rejection_db(float(np.max(mags))),
+            alias_hz=alias_hz(f, fd),
+            alias_band_hz=(float(np.min(aliases)), float(np.max(aliases))),
+            in_band=bool(np.any(in_band_mask)),
+        ))
+    return tuple(lines)
+
+
+def compute_budget(spec: Spec) -> Budget:
+    """The full budget of a validated spec; raises DesignError if no PGA gain can fit."""
+    sensor, adc, exc = spec.sensor, spec.adc, spec.excitation
+    bridge = bridge_of(sensor)
+    low, high = bridge.m_min, bridge.m_max
+    peak_v = bridge.peak_ratio() * exc.voltage_v
+    if adc.pga_gain is None:
+        gain = best_gain(adc, peak_v, exc.reference_v)
+        if gain is None:
+            raise DesignError(
+                f"{spec.source}: adc.pga_gains: the peak input {peak_v * 1e3:.4g} mV plus "
+                f"{adc.overload_margin_pct:g} % margin exceeds the range even at gain "
+                f"{min(adc.pga_gains)} (+-{exc.reference_v / min(adc.pga_gains) * 1e3:.4g} mV)")
+    else:
+        gain = adc.pga_gain
+    conv = Converter(bits=adc.bits, gain=gain, reference_v=exc.reference_v)
+    counts_per_unit = abs(bridge.sensitivity) * exc.voltage_v / conv.lsb_v
+    noise_counts = conv.noise_counts_rms(adc.noise_uv_rms)
+    noise_free_counts = PEAK_TO_PEAK_OVER_RMS * noise_counts
+    full_range_counts = float(1 << adc.bits)
+    span_counts = counts_per_unit * (high - low)
+    band = signal_band(spec)
+    mains = _mains(spec, band)
+    full_scale_ratio = float(bridge.ratio(high)) - bridge.zero_ratio
+    range_used = 100.0 * peak_v / conv.input_range_v
+    budget = Budget(
+        spec_name=spec.name,
+        spec_sha256=spec.sha256,
+        unit=sensor.unit,
+        range_min=low,
+        range_max=high,
+        resolution=spec.output.resolution,
+        bridge_resistance_ohm=sensor.bridge_resistance_ohm,
+        excitation_v=exc.voltage_v,
+        reference_v=exc.reference_v,
+        excitation_current_ma=exc.voltage_v / sensor.bridge_resistance_ohm * 1e3,
+        excitation_power_mw=exc.voltage_v ** 2 / sensor.bridge_resistance_ohm * 1e3,
+        full_scale_mv_per_v=full_scale_ratio * 1e3,
+        full_scale_output_mv=full_scale_ratio * exc.voltage_v * 1e3,
+        zero_offset_mv_per_v=bridge.zero_ratio * 1e3,
+        sensitivity_uv_per_v_per_unit=bridge.sensitivity * 1e6,
+        nonlinearity_pct_fs=bridge.nonlinearity_pct_fs(),
+        lead_desensitisation=lead_desensitisation(sensor),
+        pga_gain=gain,
+        pga_auto=adc.pga_gain is None,
+        input_range_mv=conv.input_range_v * 1e3,
+        lsb_nv=conv.lsb_v * 1e9,
+        peak_input_mv=peak_v * 1e3,
+        range_used_pct=range_used,
+        counts_per_unit=counts_per_unit,
+        counts_per_lsb=counts_per_unit * spec.output.resolution,
+        full_scale_counts=counts_per_unit * max(abs(low), abs(high)),
+        span_counts=span_counts,
+        noise_counts_rms=noise_counts,
+        effective_bits=math.log2(full_range_counts / noise_counts),
+        noise_free_bits=math.log2(full_range_counts / noise_free_counts),
+        noise_free_counts=noise_free_counts,
+        noise_free_resolution=noise_free_counts / counts_per_unit,
+        noise_free_divisions=span_counts / noise_free_counts,
+        requested_divisions=(high - low) / spec.output.resolution,
+        signal_band_hz=band,
+        mains=mains,
+        warnings=(),
+    )
+    return _with_warnings(budget)
+
+
+def _with_warnings(b: Budget) -> Budget:
+    warnings = []
+    if b.range_used_pct > 100.0:
+        warnings.append(f"peak input {b.peak_input_mv:.4g} mV overloads the ADC range "
+                        f"+-{b.input_range_mv:.4g} mV at gain {b.pga_gain} "
+                        f"({b.range_used_pct:.1f} % used): readings will saturate")
+    elif b.range_used_pct > RANGE_USED_HIGH_PCT:
+        warnings.append(f"range used {b.range_used_pct:.1f} % is above "
+                        f"{RANGE_USED_HIGH_PCT:g} %: little overload margin")
+    elif b.range_used_pct < RANGE_USED_LOW_PCT:
+        warnings.append(f"range used {b.range_used_pct:.1f} % is below {RANGE_USED_LOW_PCT:g} %: "
+                        "resolution is thrown away (a higher gain or excitation would help)")
+    if b.noise_free_resolution > b.resolution:
+        warnings.append(f"noise-free resolution {b.noise_free_resolution:.4g} {b.unit} at the "
+                        f"ADC is coarser than the requested {b.resolution:g} {b.unit} "
+                        "(before digital filtering)")
+    for m in b.mains:
+        if m.in_band and m.worst_rejection_db < MAINS_WARN_REJECTION_DB:
+            lo, hi = m.alias_band_hz
+            warnings.append(f"mains {m.frequency_hz:g} Hz (+-1 %) lands at {lo:.3g}..{hi:.3g} Hz, "
+                            f"inside the {b.signal_band_hz:g} Hz signal band, with only "
+                            f"{m.worst_rejection_db:.1f} dB of sinc rejection")
+    return replace(b, warnings=tuple(warnings))
+
+
+def budget_text(b: Budget, *, with_warnings: bool = True) -> str:
+    """The budget as the readable tables of ``hosttool check`` (warnings last, if asked)."""
+    u = b.unit
+    sensor_rows: list[Row] = [
+        ("measuring range", f"{num(b.range_min)} .. {num(b.range_max)} {u}", ""),
+        ("output step", f"{num(b.resolution)} {u}", f"{b.requested_divisions:,.0f} steps"),
+        ("bridge resistance", f"{num(b.bridge_resistance_ohm)} ohm", ""),
+        ("excitation", f"{num(b.excitation_v)} V",
+         f"{num(b.excitation_current_ma, 4)} mA, {num(b.excitation_power_mw, 4)} mW"),
+        ("full-scale output", f"{num(b.full_scale_mv_per_v)} mV/V",
+         f"{num(b.full_scale_output_mv)} mV"),
+        ("zero offset (worst)", f"{num(b.zero_offset_mv_per_v)} mV/V", ""),
+        ("sensitivity", f"{num(b.sensitivity_uv_per_v_per_unit)} uV/V per {u}", ""),
+        ("bridge nonlinearity", f"{num(b.nonlinearity_pct_fs, 4)} % FS", "exact vs tangent"),
+        ("lead desensitisation", f"{b.lead_desensitisation:.6f}", "sensitivity factor"),
+    ]
+    adc_rows: list[Row] = [
+        ("PGA gain", f"{b.pga_gain}", "chosen (auto)" if b.pga_auto else "from spec"),
+        ("input range", f"+-{num(b.input_range_mv)} mV", f"1 LSB = {num(b.lsb_nv)} nV"),
+        ("peak input", f"{num(b.peak_input_mv)} mV", f"{b.range_used_pct:.1f} % of range"),
+        ("counts per unit", f"{num(b.counts_per_unit)} /{u}",
+         f"{num(b.counts_per_lsb)} per output step"),
+        ("noise", f"{num(b.noise_counts_rms, 4)} counts RMS",
+         f"{b.effective_bits:.2f} effective bits"),
+        ("noise-free", f"{b.noise_free_bits:.2f} bits",
+         f"{num(b.noise_free_counts, 4)} counts p-p (6.6 x RMS)"),
+        ("noise-free resolution", f"{num(b.noise_free_resolution, 4)} {u}",
+         f"{b.noise_free_divisions:,.0f} divisions over the span"),
+    ]
+    mains_rows: list[Row] = []
+    for m in b.mains:
+        notch = "at a sinc notch" if m.rejection_db >= 300 else f"{m.rejection_db:.1f} dB"
+        mains_rows.append((f"{m.frequency_hz:g} Hz", notch,
+                           f"worst {m.worst_rejection_db:.1f} dB within +-1 %, lands at "
+                           f"{m.alias_band_hz[0]:.3g}..{m.alias_band_hz[1]:.3g} Hz"
+                           + (" (in band)" if m.in_band else "")))
+    mains_rows.append(("signal band", f"0 .. {num(b.signal_band_hz)} Hz", ""))
+    parts = [f"{b.spec_name}: sensor and ADC budget",
+             table("Bridge", sensor_rows), table("ADC", adc_rows),
+             table("Mains through the ADC's sinc filter", mains_rows)]
+    if with_warnings and b.warnings:
+        parts.append("\n".join(f"warning: {w}" for w in b.warnings))
+    return sections(parts)

@@ -1,0 +1,453 @@
+"""The resolved design: every constant of the firmware, float and integer, with its proof.
+
+``make_design(spec)`` is the one place numbers are chosen; render, model, verify and the
+production line only read a ``Design``. Per-unit constants (zero offset, span multiplier,
+linearisation and temperature coefficients) come as ``UnitConstants``; without them the
+design uses the nominal ones from the datasheet figures. See DEVELOPERS.md for the
+arithmetic; headroom.py for the range proof of the filter cascade.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from hosttool.design.budget import Budget, compute_budget, signal_band
+from hosttool.design.filters import Stage, design_chain
+from hosttool.design.fixedpoint import INT32_MAX, frac_bits_for, quantise
+from hosttool.design.headroom import CascadeAnalysis, NodeBound, analyse_cascade, node_bounds
+from hosttool.design.response import ChainReport, analyse_chain
+from hosttool.errors import DesignError
+from hosttool.physics.bridge import bridge_of
+from hosttool.spec.schema import Spec
+
+#: Q format of the normalised linearisation variable and coefficients, and of the span gain.
+LIN_FRAC = 30
+#: Default widths of the per-unit temperature-coefficient formats when the spec gives no
+#: limit: this many ppm (of full scale per C for zero, per C for span).
+DEFAULT_TC_RANGE_PPM = 500.0
+
+
+@dataclass(frozen=True)
+class UnitConstants:
+    """The per-unit constants a calibration block carries (integers of the design's formats)."""
+
+    offset: int                 # zero, counts * 2^G
+    scale_mul: int              # span multiplier M (chain LSB -> output LSB with shift S)
+    lin: tuple[int, ...]        # C_0 .. C_n in Q30 (empty without linearisation)
+    tc_zero: int                # Kz (output LSB per 0.01 C, shift Sz)
+    tc_span: int                # Ks (Q30 gain per 0.01 C, shift Ss)
+
+
+@dataclass(frozen=True)
+class Scale:
+    """Chain words to output LSB: s = round_shift(v * M, S)."""
+
+    shift: int
+    ideal: float                # nominal output LSB per chain LSB
+    multiplier_range: float     # largest |M / 2^S| the format must hold (span tolerance)
+    multiplier_limit: int       # largest |M| accepted: multiplier_range on the M grid
+
+    def realised(self, multiplier: int) -> float:
+        """M / 2^S."""
+        return math.ldexp(multiplier, -self.shift)
+
+
+@dataclass(frozen=True)
+class Linearisation:
+    """y = 2^K p(s / 2^K), p(w) = sum c_k w^k evaluated by Horner in Q30."""
+
+    mode: str                   # "bridge_inverse" or "polynomial"
+    norm_shift: int             # K: |s| <= 2^K over the whole ADC range
+    coeffs: tuple[float, ...]   # nominal c_0 .. c_n before quantisation
+    fit_residual_lsb: float     # max |p - exact inverse| over the range (0 for polynomial)
+
+
+@dataclass(frozen=True)
+class TempComp:
+    """s = (s - round(Kz dT / 2^Sz)) * (1 + round(Ks dT / 2^Ss) / 2^30), dT in 0.01 C."""
+
+    reference_centi: int
+    min_centi: int
+    max_centi: int
+    zero_shift: int             # Sz
+    span_shift: int             # Ss
+    zero_range: float           # largest |Kz / 2^Sz| the format holds, LSB per 0.01 C
+    span_range: float           # largest |Ks / 2^Ss| / 2^30 the format holds, per 0.01 C
+
+    @property
+    def dt_max(self) -> int:
+        """Largest |T - Tref| after clamping, 0.01 C."""
+        return max(abs(self.min_centi - self.reference_centi),
+                   abs(self.max_centi - self.reference_centi))
+
+
+@dataclass(frozen=True)
+class ErrorTerm:
+    """One contribution to the output error, output LSB."""
+
+    name: str
+    worst_lsb: float
+    rms_lsb: float
+
+
+@dataclass(frozen=True)
+class Design:
+    """Everything the firmware needs, with its headroom and error bounds."""
+
+    spec: Spec
+    budget: Budget
+    guard_bits: int             # G
+    input_bound: int            # |d| <= this, chain words (2^(bits + G))
+    stages: tuple[Stage, ...]
+    cascade: CascadeAnalysis
+    nodes: tuple[NodeBound, ...]          # the filter cascade's nodes and accumulators
+    scale: Scale
+    linearisation: Linearisation | None
+    temperature: TempComp | None
+    nominal: UnitConstants
+    constants: UnitConstants    # in force: nominal, or one unit's
+    static_nodes: tuple[NodeBound, ...]   # scale, linearisation, temperature (per unit)
+    output_bound_lsb: float     # worst |output| before the final saturation
+    errors: tuple[ErrorTerm, ...]
+    design_errors: tuple[ErrorTerm, ...]   # realised constants against the ideal design
+    filter_report: ChainReport
+    warnings: tuple[str, ...]
+
+    @property
+    def error_bound_lsb(self) -> float:
+        """Proven worst-case |integer - float64 reference (realised constants)|, output LSB."""
+        return sum(e.worst_lsb for e in self.errors)
+
+    @property
+    def output_noise_rms_lsb(self) -> float:
+        """The ADC's input-referred noise after the filters and scale, RMS output LSB
+        (white noise through the cascade's L2 norm; linearisation slope taken as 1)."""
+        gain = abs(self.scale.realised(self.constants.scale_mul)) * 2.0 ** self.guard_bits
+        return self.budget.noise_counts_rms * self.cascade.total.l2 * gain
+
+    @property
+    def all_nodes(self) -> tuple[NodeBound, ...]:
+        """Every node of the pipeline, in order: filters, then the static path."""
+        return self.nodes + self.static_nodes
+
+    @property
+    def static_error_bound_lsb(self) -> float:
+        """Proven worst case of the static path alone (filters settled: no filter rounding)."""
+        return sum(e.worst_lsb for e in self.errors if e.name != "filter rounding")
+
+    @property
+    def error_rms_lsb(self) -> float:
+        """Predicted RMS of the same difference (independent uniform roundings)."""
+        return math.sqrt(sum(e.rms_lsb ** 2 for e in self.errors))
+
+    @property
+    def ideal_error_bound_lsb(self) -> float:
+        """Worst case against the ideal (unquantised) design: rounding plus coefficients."""
+        return self.error_bound_lsb + sum(e.worst_lsb for e in self.design_errors)
+
+    @property
+    def decimation(self) -> int:
+        """Total decimation of the cascade."""
+        return self.cascade.decimation
+
+    @property
+    def output_rate_hz(self) -> float:
+        """Output samples per second."""
+        return self.spec.adc.data_rate_sps / self.decimation
+
+    def with_constants(self, constants: UnitConstants) -> Design:
+        """The same design carrying one unit's constants (bounds recomputed for them).
+
+        Only what depends on the constants is redone (their check, the error terms, the
+        output bound); the filter design and its analysis are reused, so this is cheap
+        enough to call once per unit on a production line.
+        """
+        return dataclasses.replace(self, **_unit_fields(
+            self.spec, self.cascade, self.guard_bits, self.scale, self.linearisation,
+            self.temperature, constants, self.filter_report.warnings))
+
+
+def _guard_bits(bits: int, analysis: CascadeAnalysis, field: str) -> int:
+    """Most guard bits G with every node's worst case inside int32."""
+    worst_rounding = max([0.0] + [n.rounding for n in analysis.nodes])
+    g = 0
+    while (analysis.max_gain_l1 * math.ldexp(1.0, bits + g + 1) + worst_rounding
+           <= INT32_MAX and g < 16):
+        g += 1
+    if analysis.max_gain_l1 * math.ldexp(1.0, bits + g) + worst_rounding > INT32_MAX:
+        raise DesignError(f"{field}: the cascade's worst-case gain {analysis.max_gain_l1:.4g} "
+                          f"leaves no room in 32-bit words for {bits}-bit codes")
+    return g
+
+
+def _scale(spec: Spec, budget: Budget, guard_bits: int) -> Scale:
+    ideal = 1.0 / (math.ldexp(budget.counts_per_lsb, guard_bits))
+    tolerance = (spec.calibration.span_tolerance_pct if spec.calibration else 20.0) / 100.0
+    widest = ideal * (1.0 + tolerance)
+    shift = frac_bits_for(widest, 32)
+    if shift < 1:
+        raise DesignError(f"{spec.source}: output.resolution: {spec.output.resolution:g} is "
+                          "finer than one chain LSB can reach; the scale multiplier needs a "
+                          "negative shift")
+    # Rounded to the nearest M (not floored): the span tolerance of a round-numbered design
+    # lands on an integer, and float noise must not move the limit by one.
+    limit = min(INT32_MAX, quantise(widest, shift))
+    return Scale(shift=shift, ideal=ideal, multiplier_range=widest, multiplier_limit=limit)
+
+
+def _linearisation(spec: Spec, budget: Budget, output_bound: float) -> Linearisation | None:
+    lin = spec.linearisation
+    if lin.mode == "none":
+        return None
+    k = max(1, math.frexp(output_bound)[1])
+    if k > LIN_FRAC - 2:
+        raise DesignError(f"{spec.source}: output.resolution: {output_bound:.4g} output LSB "
+                          f"over the ADC range needs 2^{k}, more than the linearisation's "
+                          f"Q{LIN_FRAC} variable can normalise (at most 2^{LIN_FRAC - 2})")
+    if lin.mode == "polynomial":
+        coeffs = (0.0, 1.0) + (0.0,) * (lin.order - 1)
+        return Linearisation("polynomial", k, coeffs, 0.0)
+    bridge = bridge_of(spec.sensor)
+    res = spec.output.resolution
+    r0, slope = bridge.zero_ratio - bridge.offset, bridge.sensitivity
+    # s: the linearly scaled reading (tangent sensitivity) of measurand m, in output LSB
+    m = np.linspace(bridge.m_min, bridge.m_max, 4001)
+    s = (np.asarray(bridge.ratio(m)) - bridge.offset - r0) / (slope * res)
+    target = m / res
+    w = s / math.ldexp(1.0, k)
+    poly = np.polynomial.Polynomial.fit(w, target / math.ldexp(1.0, k), lin.order,
+                                        domain=[-1, 1], window=[-1, 1])
+    coeffs = tuple(float(c) for c in poly.coef)
+    residual = float(np.max(np.abs(poly(w) * math.ldexp(1.0, k) - target)))
+    if max(abs(c) for c in coeffs) >= 2.0 or sum(abs(c) for c in coeffs) >= 4.0:
+        raise DesignError(f"{spec.source}: linearisation.order: the fitted polynomial's "
+                          "coefficients are too large for Q1.30 words")
+    return Linearisation("bridge_inverse", k, coeffs, residual)
+
+
+def _temperature(spec: Spec, full_scale_lsb: float) -> TempComp | None:
+    t = spec.temperature
+    if t is None:
+        return None
+    zero_ppm = t.max_zero_tc_ppm_fs_per_c or max(DEFAULT_TC_RANGE_PPM,
+                                                 2 * abs(t.zero_tc_ppm_fs_per_c))
+    span_ppm = t.max_span_tc_ppm_per_c or max(DEFAULT_TC_RANGE_PPM,
+                                              2 * abs(t.span_tc_ppm_per_c))
+    zero_range = zero_ppm * 1e-6 * full_scale_lsb / 100.0
+    span_range = span_ppm * 1e-6 / 100.0
+    return TempComp(
+        reference_centi=round(t.reference_c * 100), min_centi=round(t.min_c * 100),
+        max_centi=round(t.max_c * 100),
+        zero_shift=frac_bits_for(zero_range * 2, 32),
+        span_shift=frac_bits_for(span_range * 2 * math.ldexp(1.0, LIN_FRAC), 32),
+        zero_range=zero_range, span_range=span_range)
+
+
+def _nominal(spec: Spec, budget: Budget, g: int, scale: Scale, lin: Linearisation | None,
+             temp: TempComp | None, full_scale_lsb: float) -> UnitConstants:
+    bridge = bridge_of(spec.sensor)
+    lead_offset_counts = (bridge.zero_ratio - bridge.offset) * spec.excitation.voltage_v \
+        / budget.converter(spec.adc.bits).lsb_v
+    tc_zero = tc_span = 0
+    if temp is not None and spec.temperature is not None:
+        alpha = spec.temperature.zero_tc_ppm_fs_per_c * 1e-6 * full_scale_lsb / 100.0
+        gamma = -spec.temperature.span_tc_ppm_per_c * 1e-6 / 100.0
+        tc_zero = quantise(alpha, temp.zero_shift)
+        tc_span = quantise(gamma * math.ldexp(1.0, LIN_FRAC), temp.span_shift)
+    return UnitConstants(
+        offset=quantise(lead_offset_counts, g),
+        scale_mul=quantise(scale.ideal, scale.shift),
+        lin=tuple(quantise(c, LIN_FRAC) for c in lin.coeffs) if lin else (),
+        tc_zero=tc_zero, tc_span=tc_span)
+
+
+def offset_limit(bits: int, g: int) -> int:
+    """Largest |offset| accepted, counts * 2^G: the ADC's range."""
+    return 1 << (bits - 1 + g)
+
+
+def check_constants(c: UnitConstants, *, bits: int, g: int, scale: Scale,
+                    lin: Linearisation | None, temp: TempComp | None, source: str) -> None:
+    """Refuse per-unit constants outside the formats the range proof assumed."""
+    if abs(c.offset) > offset_limit(bits, g):
+        raise DesignError(f"{source}: zero offset {c.offset / 2 ** g:.1f} counts lies outside "
+                          "the ADC range")
+    if abs(c.scale_mul) > scale.multiplier_limit:
+        raise DesignError(f"{source}: span multiplier {c.scale_mul} is beyond the span "
+                          "tolerance the design's format holds (calibration.span_tolerance_pct)")
+    if lin is not None and len(c.lin) != len(lin.coeffs):
+        raise DesignError(f"{source}: {len(c.lin)} linearisation coefficients given, the "
+                          f"design has {len(lin.coeffs)}")
+    if lin is not None and (sum(abs(x) for x in c.lin) >= 4 << LIN_FRAC
+                            or max(abs(x) for x in c.lin) > INT32_MAX):
+        raise DesignError(f"{source}: linearisation coefficients too large for Q1.{LIN_FRAC}")
+    if temp is not None:
+        if abs(c.tc_zero) > INT32_MAX or abs(c.tc_span) > INT32_MAX:
+            raise DesignError(f"{source}: a temperature coefficient exceeds its format")
+
+
+def _errors(spec: Spec, cascade: CascadeAnalysis, scale: Scale, c: UnitConstants,
+            lin: Linearisation | None, temp: TempComp | None, scaled_bound: float
+            ) -> tuple[ErrorTerm, ...]:
+    gain = abs(scale.realised(c.scale_mul))
+    lin_slope = 1.0
+    lin_coeffs = [x / 2 ** LIN_FRAC for x in c.lin]
+    if lin is not None:
+        lin_slope = max(1.0, sum(k * abs(x) for k, x in enumerate(lin_coeffs)))
+    temp_gain = 1.0
+    if temp is not None:
+        temp_gain = 1.0 + abs(c.tc_span) / 2.0 ** temp.span_shift / 2.0 ** LIN_FRAC \
+            * temp.dt_max + 2.0 ** -LIN_FRAC
+    amplify = lin_slope * temp_gain
+    terms = [ErrorTerm("filter rounding", cascade.output_rounding * gain * amplify,
+                       cascade.output_rounding_rms * gain * amplify),
+             ErrorTerm("scale rounding", 0.5 * amplify, amplify / math.sqrt(12))]
+    if lin is not None:
+        n = len(c.lin) - 1
+        horner = n * 0.5 * 2.0 ** (lin.norm_shift - LIN_FRAC)
+        terms.append(ErrorTerm("linearisation rounding", (horner + 0.5) * temp_gain,
+                               math.sqrt(horner ** 2 / 3 + 1 / 12) * temp_gain))
+    if temp is not None:
+        lin_bound = scaled_bound
+        if lin is not None:
+            lin_bound = sum(abs(x) for x in lin_coeffs) * 2.0 ** lin.norm_shift
+        s1 = lin_bound + abs(c.tc_zero) / 2.0 ** temp.zero_shift * temp.dt_max + 1
+        # an exact zero coefficient rounds nothing: z = 0, or g = 0 and s1 * g = 0
+        zero_part = 0.5 * temp_gain if c.tc_zero else 0.0
+        span_part = s1 * 0.5 * 2.0 ** -LIN_FRAC + 0.5 if c.tc_span else 0.0
+        terms.append(ErrorTerm("temperature rounding", zero_part + span_part,
+                               math.sqrt((bool(c.tc_zero) + bool(c.tc_span)) / 12)))
+    return tuple(terms)
+
+
+def _design_errors(cascade: CascadeAnalysis, input_bound: int, scale: Scale, c: UnitConstants,
+                   lin: Linearisation | None) -> tuple[ErrorTerm, ...]:
+    gain = abs(scale.realised(c.scale_mul))
+    coeff = cascade.total.minus(cascade.ideal_total).l1 * input_bound * gain
+    terms = [ErrorTerm("filter coefficients", coeff, coeff / math.sqrt(3))]
+    if lin is not None:
+        q = sum(abs(x / 2 ** LIN_FRAC - y) for x, y in zip(c.lin, lin.coeffs, strict=True))
+        terms.append(ErrorTerm("linearisation coefficients", q * 2.0 ** lin.norm_shift, 0.0))
+        if lin.fit_residual_lsb:
+            terms.append(ErrorTerm("linearisation fit", lin.fit_residual_lsb, 0.0))
+    return tuple(terms)
+
+
+def _stopband_edge(spec: Spec) -> float:
+    """Where the reported stopband starts, Hz: the FIR stop edge, else a decade above the
+    lowest corner, at most 0.8 x Nyquist."""
+    edges = [s.cutoff_hz + s.transition_hz / 2 for s in spec.filter.stages
+             if s.kind == "fir_lowpass" and s.cutoff_hz and s.transition_hz]
+    corners = [s.cutoff_hz for s in spec.filter.stages if s.cutoff_hz]
+    nyquist = spec.adc.data_rate_sps / 2
+    if edges:
+        return min(min(edges), 0.8 * nyquist)
+    if corners:
+        return min(10 * min(corners), 0.8 * nyquist)
+    return 0.8 * nyquist
+
+
+def _scaled_bound(cascade: CascadeAnalysis, input_bound: int, scale: Scale) -> float:
+    """Worst |s| after the scale over the whole ADC range, output LSB."""
+    chain_bound = cascade.total.l1 * input_bound + cascade.output_rounding
+    return chain_bound * scale.multiplier_range + 0.5
+
+
+def _unit_fields(spec: Spec, cascade: CascadeAnalysis, g: int, scale: Scale,
+                 lin: Linearisation | None, temp: TempComp | None, c: UnitConstants,
+                 filter_warnings: tuple[str, ...]) -> dict[str, Any]:
+    """The Design fields that depend on the constants in force, after checking them."""
+    check_constants(c, bits=spec.adc.bits, g=g, scale=scale, lin=lin, temp=temp,
+                    source=spec.source)
+    input_bound = 1 << (spec.adc.bits + g)
+    scaled_bound = _scaled_bound(cascade, input_bound, scale)
+    errors = _errors(spec, cascade, scale, c, lin, temp, scaled_bound)
+    design_errors = _design_errors(cascade, input_bound, scale, c, lin)
+    chain_bound = cascade.total.l1 * input_bound + cascade.output_rounding
+    static = _static_nodes(chain_bound, scale, lin, temp, c,
+                           spec.adc.data_rate_sps / cascade.decimation)
+    for node in static:
+        if node.word == 64 and node.headroom_bits < 0:
+            raise DesignError(f"{spec.source}: {node.name} can reach {node.bound:.4g}, beyond "
+                              "int64: narrow the temperature range or the coefficient limits")
+    out_bound = static[-1].bound
+    warnings = list(filter_warnings)
+    if out_bound > INT32_MAX:
+        warnings.append(f"inputs far beyond the sensor range can reach {out_bound:.4g} output "
+                        "LSB and saturate at the int32 limits")
+    return {"constants": c, "errors": errors, "design_errors": design_errors,
+            "static_nodes": static, "output_bound_lsb": out_bound, "warnings": tuple(warnings)}
+
+
+def _static_nodes(chain_bound: float, scale: Scale, lin: Linearisation | None,
+                  temp: TempComp | None, c: UnitConstants, rate_hz: float
+                  ) -> tuple[NodeBound, ...]:
+    """Worst cases of the scale, linearisation and temperature steps (output LSB, or the
+    int64 products before their shifts), for chain words bounded by ``chain_bound``.
+
+    The span multiplier and the temperature coefficients are taken at the widest value
+    their formats accept (or the unit's, if wider), so the proof holds for every unit that
+    calibration can produce, not only for the constants in force.
+    """
+    m = float(max(abs(c.scale_mul), scale.multiplier_limit))
+    nodes = [NodeBound("scale.product", 0.0, 0.0, chain_bound * m + 2.0 ** (scale.shift - 1),
+                       64, rate_hz)]
+    bound = chain_bound * m / 2.0 ** scale.shift + 0.5
+    nodes.append(NodeBound("scale", 0.0, 0.0, bound, 32, rate_hz))
+    if lin is not None:
+        acc = float(sum(abs(x) for x in c.lin))
+        nodes.append(NodeBound("linearisation.product", 0.0, 0.0,
+                               acc * 2.0 ** LIN_FRAC + 2.0 ** (LIN_FRAC - 1), 64, rate_hz))
+        bound = acc / 2.0 ** LIN_FRAC * 2.0 ** lin.norm_shift + 0.5
+        nodes.append(NodeBound("linearisation", 0.0, 0.0, bound, 32, rate_hz))
+    if temp is not None:
+        kz = max(abs(c.tc_zero) / 2.0 ** temp.zero_shift, temp.zero_range)
+        ks = max(abs(c.tc_span) / 2.0 ** temp.span_shift, temp.span_range * 2.0 ** LIN_FRAC)
+        s1 = min(bound, INT32_MAX + 1.0) + kz * temp.dt_max + 0.5
+        g = ks * temp.dt_max + 0.5
+        nodes.append(NodeBound("temperature.product", 0.0, 0.0,
+                               s1 * g + 2.0 ** (LIN_FRAC - 1), 64, rate_hz))
+        nodes.append(NodeBound("temperature", 0.0, 0.0, s1 * (1 + g / 2.0 ** LIN_FRAC) + 0.5,
+                               32, rate_hz))
+    return tuple(nodes)
+
+
+def make_design(spec: Spec, constants: UnitConstants | None = None) -> Design:
+    """Resolve every constant of ``spec``; ``constants`` are one unit's (nominal if None)."""
+    budget = compute_budget(spec)
+    try:
+        stages = design_chain(spec.filter)
+    except DesignError as exc:
+        raise DesignError(f"{spec.source}: {exc}") from None
+    cascade = analyse_cascade(stages, spec.adc.data_rate_sps)
+    bits = spec.adc.bits
+    g = _guard_bits(bits, cascade, f"{spec.source}: filter")
+    input_bound = 1 << (bits + g)
+    nodes = node_bounds(stages, cascade, input_bound, spec.adc.data_rate_sps)
+    for node in nodes:
+        if node.headroom_bits < 0:
+            raise DesignError(f"{spec.source}: filter: node {node.name} can reach "
+                              f"{node.bound:.4g}, beyond its {node.word}-bit word")
+    scale = _scale(spec, budget, g)
+    scaled_bound = _scaled_bound(cascade, input_bound, scale)
+    lin = _linearisation(spec, budget, min(scaled_bound, INT32_MAX))
+    full_scale_lsb = spec.sensor.full_scale / spec.output.resolution
+    temp = _temperature(spec, full_scale_lsb)
+    nominal = _nominal(spec, budget, g, scale, lin, temp, full_scale_lsb)
+    report = analyse_chain(stages, passband_edge_hz=signal_band(spec),
+                           stopband_edge_hz=_stopband_edge(spec),
+                           adc_rate_hz=spec.adc.data_rate_sps, sinc_order=spec.adc.sinc_order,
+                           full_scale_lsb=full_scale_lsb,
+                           sinc_decimation=(spec.adc.modulator_rate_hz / spec.adc.data_rate_sps
+                                            if spec.adc.modulator_rate_hz else None))
+    unit = _unit_fields(spec, cascade, g, scale, lin, temp,
+                        nominal if constants is None else constants, tuple(report.warnings))
+    return Design(spec=spec, budget=budget, guard_bits=g, input_bound=input_bound,
+                  stages=stages, cascade=cascade, nodes=nodes, scale=scale,
+                  linearisation=lin, temperature=temp, nominal=nominal,
+                  filter_report=report, **unit)  # type: ignore[arg-type]

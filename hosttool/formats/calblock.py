@@ -1,0 +1,190 @@
+"""The per-unit calibration block: a packed, little-endian, versioned, CRC-protected record.
+
+``LAYOUT`` is the single source of truth: the C header template renders the struct, its
+size and field-offset assertions from it, and ``encode``/``decode`` pack and unpack it with
+``struct``. Every field lies at its natural alignment, so the C struct needs no packing
+attribute. The CRC-32 (ISO-HDLC, as zlib.crc32) covers every byte before it.
+"""
+
+from __future__ import annotations
+
+import struct
+import zlib
+from dataclasses import dataclass
+from typing import Any
+
+from hosttool.design.resolve import Design, UnitConstants
+from hosttool.errors import DesignError, InputError
+
+MAGIC = 0x42435448            # the bytes "HTCB" read as a little-endian uint32
+LAYOUT_VERSION = 1
+SERIAL_BYTES = 16
+LIN_SLOTS = 6
+FLAG_LINEARISATION = 0x01
+FLAG_TEMPERATURE = 0x02
+
+
+@dataclass(frozen=True)
+class Field:
+    """One field: C name, struct code, count (arrays), C type, meaning."""
+
+    name: str
+    code: str
+    count: int
+    ctype: str
+    doc: str
+
+    @property
+    def size(self) -> int:
+        """Bytes the field occupies."""
+        return struct.calcsize("<" + self.code) * self.count
+
+
+LAYOUT: tuple[Field, ...] = (
+    Field("magic", "I", 1, "uint32_t", "0x42435448, \"HTCB\" in memory"),
+    Field("layout_version", "H", 1, "uint16_t", "layout of this struct, 1"),
+    Field("length", "H", 1, "uint16_t", "bytes from magic to crc32 inclusive"),
+    Field("serial", "c", SERIAL_BYTES, "char", "unit serial, ASCII, NUL padded"),
+    Field("cal_time_utc", "q", 1, "int64_t", "calibration time, seconds since 1970 UTC"),
+    Field("spec_hash", "B", 8, "uint8_t", "first 8 bytes of the spec's SHA-256"),
+    Field("offset", "i", 1, "int32_t", "zero, ADC counts x 2^G"),
+    Field("scale_mul", "i", 1, "int32_t", "span multiplier M"),
+    Field("scale_shift", "B", 1, "uint8_t", "span shift S (must equal the design's)"),
+    Field("guard_bits", "B", 1, "uint8_t", "G (must equal the design's)"),
+    Field("lin_count", "B", 1, "uint8_t", "linearisation coefficients used (0 = none)"),
+    Field("flags", "B", 1, "uint8_t", "bit 0 linearisation, bit 1 temperature"),
+    Field("lin", "i", LIN_SLOTS, "int32_t", "C_0 .. C_n, Q1.30; unused slots 0"),
+    Field("tc_zero", "i", 1, "int32_t", "zero temperature coefficient Kz"),
+    Field("tc_span", "i", 1, "int32_t", "span temperature coefficient Ks"),
+    Field("tc_zero_shift", "B", 1, "uint8_t", "Sz (must equal the design's)"),
+    Field("tc_span_shift", "B", 1, "uint8_t", "Ss (must equal the design's)"),
+    Field("reserved", "B", 2, "uint8_t", "0"),
+    Field("ref_temp_centi", "i", 1, "int32_t", "reference temperature, 0.01 C"),
+    Field("crc32", "I", 1, "uint32_t", "CRC-32/ISO-HDLC of every byte before it"),
+)
+
+STRUCT_FORMAT = "<" + "".join(f"{f.count}{f.code}" if f.count > 1 else f.code
+                              for f in LAYOUT)
+BLOCK_SIZE = struct.calcsize(STRUCT_FORMAT)
+
+
+def offsets() -> dict[str, int]:
+    """Byte offset of every field (checked against the C compiler's offsetof)."""
+    out, pos = {}, 0
+    for f in LAYOUT:
+        align = struct.calcsize("<" + f.code)
+        if pos % align:
+            raise AssertionError(f"field {f.name} is not naturally aligned")
+        out[f.name] = pos
+        pos += f.size
+    return out
+
+
+@dataclass(frozen=True)
+class CalBlock:
+    """A decoded calibration block."""
+
+    serial: str
+    cal_time_utc: int
+    spec_hash: bytes
+    constants: UnitConstants
+    scale_shift: int
+    guard_bits: int
+    flags: int
+    tc_zero_shift: int
+    tc_span_shift: int
+    ref_temp_centi: int
+    crc32: int
+
+
+def spec_hash8(design: Design) -> bytes:
+    """The first 8 bytes of the spec's SHA-256 (the block's spec hash)."""
+    return bytes.fromhex(design.spec.sha256)[:8]
+
+
+def encode(design: Design, constants: UnitConstants, *, serial: str, cal_time_utc: int) -> bytes:
+    """The block's bytes for one unit (exactly BLOCK_SIZE; CRC last)."""
+    raw_serial = serial.encode("ascii", errors="strict") if serial.isascii() else b""
+    if not raw_serial or len(raw_serial) > SERIAL_BYTES or not serial.isprintable():
+        raise InputError(f"serial {serial!r}: must be 1 to {SERIAL_BYTES} printable ASCII "
+                         "characters")
+    lin = design.linearisation
+    temp = design.temperature
+    if len(constants.lin) > LIN_SLOTS:
+        raise InputError(f"{len(constants.lin)} linearisation coefficients; the block holds "
+                         f"{LIN_SLOTS}")
+    flags = (FLAG_LINEARISATION if lin else 0) | (FLAG_TEMPERATURE if temp else 0)
+    lin_values = list(constants.lin) + [0] * (LIN_SLOTS - len(constants.lin))
+    values: list[object] = [
+        MAGIC, LAYOUT_VERSION, BLOCK_SIZE,
+        *[bytes([b]) for b in raw_serial.ljust(SERIAL_BYTES, b"\0")],
+        cal_time_utc, *spec_hash8(design),
+        constants.offset, constants.scale_mul, design.scale.shift, design.guard_bits,
+        len(constants.lin), flags, *lin_values, constants.tc_zero, constants.tc_span,
+        temp.zero_shift if temp else 0, temp.span_shift if temp else 0, 0, 0,
+        temp.reference_centi if temp else 0, 0,
+    ]
+    body = struct.pack(STRUCT_FORMAT, *values)[:-4]
+    return body + struct.pack("<I", zlib.crc32(body))
+
+
+def decode(data: bytes) -> CalBlock:
+    """Unpack and check a block: magic, layout version, length, CRC (InputError otherwise)."""
+    if len(data) < BLOCK_SIZE:
+        raise InputError(f"calibration block: {len(data)} bytes, expected {BLOCK_SIZE}")
+    data = bytes(data[:BLOCK_SIZE])
+    fields = struct.unpack(STRUCT_FORMAT, data)
+    named: dict[str, Any] = {}
+    i = 0
+    for f in LAYOUT:
+        named[f.name] = fields[i] if f.count == 1 else fields[i:i + f.count]
+        i += f.count
+    if named["magic"] != MAGIC:
+        raise InputError(f"calibration block: magic 0x{named['magic']:08X}, expected "
+                         f"0x{MAGIC:08X} (no block here?)")
+    if named["layout_version"] != LAYOUT_VERSION:
+        raise InputError(f"calibration block: layout version {named['layout_version']}, this "
+                         f"tool reads {LAYOUT_VERSION}")
+    if named["length"] != BLOCK_SIZE:
+        raise InputError(f"calibration block: length {named['length']}, expected {BLOCK_SIZE}")
+    crc = zlib.crc32(data[:-4])
+    if named["crc32"] != crc:
+        raise InputError(f"calibration block: CRC-32 0x{named['crc32']:08X} does not match the "
+                         f"contents (0x{crc:08X})")
+    serial = b"".join(named["serial"]).rstrip(b"\0").decode("ascii", errors="replace")
+    lin = tuple(int(v) for v in named["lin"][: named["lin_count"]])
+    constants = UnitConstants(offset=named["offset"], scale_mul=named["scale_mul"], lin=lin,
+                              tc_zero=named["tc_zero"], tc_span=named["tc_span"])
+    return CalBlock(serial=serial, cal_time_utc=named["cal_time_utc"],
+                    spec_hash=bytes(named["spec_hash"]), constants=constants,
+                    scale_shift=named["scale_shift"], guard_bits=named["guard_bits"],
+                    flags=named["flags"], tc_zero_shift=named["tc_zero_shift"],
+                    tc_span_shift=named["tc_span_shift"],
+                    ref_temp_centi=named["ref_temp_centi"], crc32=named["crc32"])
+
+
+def check_against(block: CalBlock, design: Design, source: str) -> None:
+    """Refuse a block made for another spec or another fixed-point layout."""
+    if block.spec_hash != spec_hash8(design):
+        raise InputError(f"{source}: the block's spec hash {block.spec_hash.hex()} is not this "
+                         f"spec's ({spec_hash8(design).hex()}): made for another spec")
+    temp = design.temperature
+    expected = (design.scale.shift, design.guard_bits,
+                temp.zero_shift if temp else 0, temp.span_shift if temp else 0)
+    found = (block.scale_shift, block.guard_bits, block.tc_zero_shift, block.tc_span_shift)
+    if expected != found:
+        raise InputError(f"{source}: the block's shifts {found} differ from the design's "
+                         f"{expected}")
+    lin = design.linearisation
+    layout = (len(lin.coeffs) if lin else 0,
+              (FLAG_LINEARISATION if lin else 0) | (FLAG_TEMPERATURE if temp else 0),
+              temp.reference_centi if temp else 0)
+    found_layout = (len(block.constants.lin), block.flags, block.ref_temp_centi)
+    if layout != found_layout:
+        raise InputError(f"{source}: the block's (coefficients, flags, reference temperature) "
+                         f"{found_layout} differ from the design's {layout}")
+    try:
+        design.with_constants(block.constants)
+    except DesignError as exc:
+        raise InputError(f"{source}: the block's constants are outside the design's formats: "
+                         f"{exc}") from None

@@ -1,0 +1,146 @@
+"""CAL.json: one unit's calibration as a versioned JSON file, and reading it back.
+
+Top-level keys (format_version 1): format ("hosttool-calibration"), format_version,
+tool_version, spec {name, sha256}, serial, cal_time_utc (ISO 8601, Z), readings {file,
+sha256}, unit (output unit), formats {guard_bits, scale_shift, lin_norm_shift,
+tc_zero_shift, tc_span_shift}, constants {offset, scale_mul, lin, tc_zero, tc_span},
+verdict ("pass"/"fail"), reasons, criteria, figures, rounding, points, cautions. The same
+readings give the same bytes (no wall-clock time inside).
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+from hosttool import __version__
+from hosttool.design.resolve import Design, UnitConstants
+from hosttool.errors import InputError
+from hosttool.formats.readings import SERIAL_RE, format_time_utc, parse_time_utc
+
+if TYPE_CHECKING:
+    from hosttool.production.fit import UnitCalibration
+
+FORMAT = "hosttool-calibration"
+FORMAT_VERSION = 1
+
+CAUTIONS = (
+    "Weighing for trade needs type approval and verification by the competent "
+    "legal-metrology authority; these figures are no such verification.",
+    "Lifting equipment and pressure systems follow local codes and licensed practice; the "
+    "tool's figures do not replace them.",
+)
+
+
+@dataclass(frozen=True)
+class CalRecord:
+    """What a CAL.json holds that the image and the firmware need."""
+
+    serial: str
+    cal_time_utc: int
+    constants: UnitConstants
+    verdict: str
+
+
+def formats(design: Design) -> dict[str, int | None]:
+    """The fixed-point formats the constants are written in (must match on reading)."""
+    tc, lin = design.temperature, design.linearisation
+    return {"guard_bits": design.guard_bits, "scale_shift": design.scale.shift,
+            "lin_norm_shift": lin.norm_shift if lin else None,
+            "tc_zero_shift": tc.zero_shift if tc else None,
+            "tc_span_shift": tc.span_shift if tc else None}
+
+
+def constants_json(c: UnitConstants) -> dict[str, Any]:
+    """The constants as a JSON object (integers)."""
+    return {"offset": c.offset, "scale_mul": c.scale_mul, "lin": list(c.lin),
+            "tc_zero": c.tc_zero, "tc_span": c.tc_span}
+
+
+def calibration_json(result: UnitCalibration, design: Design, *, readings_file: str,
+                     readings_sha256: str) -> dict[str, Any]:
+    """The CAL.json object of one unit."""
+    spec = design.spec
+    return {
+        "format": FORMAT, "format_version": FORMAT_VERSION, "tool_version": __version__,
+        "spec": {"name": spec.name, "sha256": spec.sha256},
+        "serial": result.serial, "cal_time_utc": format_time_utc(result.cal_time_utc),
+        "readings": {"file": readings_file, "sha256": readings_sha256},
+        "unit": spec.sensor.unit, "formats": formats(design),
+        "constants": constants_json(result.constants),
+        "verdict": result.verdict, "reasons": list(result.reasons),
+        "criteria": [{"key": c.key, "label": c.label, "value": c.value, "limit": c.limit,
+                      "unit": c.unit, "source": c.source, "pass": c.passed}
+                     for c in result.criteria],
+        "figures": result.figures,
+        "rounding": [{"constant": r.constant, "integer": r.integer, "exact": r.exact,
+                      "adds": r.adds} for r in result.rounding],
+        "points": [{"line": p.line, "reference": p.reference, "temperature_c": p.temperature_c,
+                    "direction": "up" if p.up else "down", "output": p.output,
+                    "error": p.error, "linearity": p.linearity} for p in result.points],
+        "cautions": list(CAUTIONS),
+    }
+
+
+def _get(data: dict[str, Any], key: str, kind: type | tuple[type, ...], where: str) -> Any:
+    if key not in data:
+        raise InputError(f"{where}: {key}: missing")
+    value = data[key]
+    if isinstance(value, bool) and kind is not bool or not isinstance(value, kind):
+        raise InputError(f"{where}: {key}: expected {getattr(kind, '__name__', kind)}, got "
+                         f"{type(value).__name__}")
+    return value
+
+
+def _int(data: dict[str, Any], key: str, where: str) -> int:
+    value = _get(data, key, int, where)
+    if not -(1 << 31) <= value < 1 << 31:
+        raise InputError(f"{where}: {key}: {value} does not fit an int32")
+    return int(value)
+
+
+def read_calfile(path: Path, design: Design) -> CalRecord:
+    """Read CAL.json made for ``design``'s spec; ``InputError`` on anything else."""
+    try:
+        data = json.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise InputError(f"{path}: no such file") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"{path}: cannot read: {exc}") from None
+    except json.JSONDecodeError as exc:
+        raise InputError(f"{path}:{exc.lineno}: not valid JSON: {exc.msg}") from None
+    where = str(path)
+    if not isinstance(data, dict) or data.get("format") != FORMAT:
+        raise InputError(f"{where}: format: not a hosttool calibration file")
+    if _get(data, "format_version", int, where) != FORMAT_VERSION:
+        raise InputError(f"{where}: format_version: {data['format_version']}, this tool reads "
+                         f"{FORMAT_VERSION}")
+    spec = _get(data, "spec", dict, where)
+    sha = _get(spec, "sha256", str, f"{where}: spec")
+    if sha != design.spec.sha256:
+        raise InputError(f"{where}: spec.sha256: made for spec {spec.get('name')!r} "
+                         f"({sha[:16]}...), not {design.spec.source} "
+                         f"({design.spec.sha256[:16]}...)")
+    found = _get(data, "formats", dict, where)
+    if found != formats(design):
+        raise InputError(f"{where}: formats: {found} differ from this design's "
+                         f"{formats(design)}: the design changed since calibration; "
+                         "calibrate again")
+    serial = _get(data, "serial", str, where)
+    if not SERIAL_RE.match(serial):
+        raise InputError(f"{where}: serial: {serial!r} is not a valid serial")
+    cal_time = parse_time_utc(_get(data, "cal_time_utc", str, where), f"{where}: cal_time_utc")
+    c = _get(data, "constants", dict, where)
+    cw = f"{where}: constants"
+    lin = _get(c, "lin", list, cw)
+    lin_values = tuple(_int({"lin": v}, "lin", cw) for v in lin)
+    constants = UnitConstants(offset=_int(c, "offset", cw), scale_mul=_int(c, "scale_mul", cw),
+                              lin=lin_values, tc_zero=_int(c, "tc_zero", cw),
+                              tc_span=_int(c, "tc_span", cw))
+    verdict = _get(data, "verdict", str, where)
+    if verdict not in ("pass", "fail"):
+        raise InputError(f"{where}: verdict: {verdict!r} is not 'pass' or 'fail'")
+    return CalRecord(serial=serial, cal_time_utc=cal_time, constants=constants,
+                     verdict=verdict)

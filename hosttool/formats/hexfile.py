@@ -1,0 +1,107 @@
+"""The calibration block as a flash image: Intel HEX (intelhex library) or raw bytes.
+
+The block (calblock.encode) sits at ``target.calblock_address`` and is padded to
+``target.calblock_size`` with 0xFF, the value of erased flash, so flashing the image also
+clears whatever an older block left in the rest of the area. intelhex writes a type 04
+extended linear address record wherever the address passes a 64 KiB boundary. Merging
+with a firmware image refuses any firmware byte inside the block's area.
+"""
+
+from __future__ import annotations
+
+import io
+from pathlib import Path
+
+from intelhex import IntelHex, IntelHexError
+
+from hosttool.design.resolve import Design
+from hosttool.errors import InputError
+from hosttool.formats.calblock import BLOCK_SIZE
+
+ERASED = 0xFF
+
+
+def block_area(design: Design) -> tuple[int, int]:
+    """(address, size) of the block's flash area; refuses a spec without room for it."""
+    spec = design.spec
+    if spec.target is None:
+        raise InputError(f"{spec.source}: target: the spec has no [target] section "
+                         "(calblock_address, calblock_size)")
+    if spec.target.calblock_size < BLOCK_SIZE:
+        raise InputError(f"{spec.source}: target.calblock_size: {spec.target.calblock_size} "
+                         f"bytes cannot hold the {BLOCK_SIZE}-byte calibration block")
+    return spec.target.calblock_address, spec.target.calblock_size
+
+
+def padded(design: Design, block: bytes) -> bytes:
+    """The block followed by erased bytes up to the area's size."""
+    _, size = block_area(design)
+    return block + bytes([ERASED]) * (size - len(block))
+
+
+def hex_text(image: IntelHex) -> str:
+    """Intel HEX text, 16 data bytes per record, "\\n" line ends, start address if any."""
+    out = io.StringIO()
+    image.write_hex_file(out, write_start_addr=True, byte_count=16)
+    return out.getvalue()
+
+
+def read_hex(path: Path) -> IntelHex:
+    """Parse an Intel HEX file; any problem is a one-line ``InputError``."""
+    if not path.is_file():
+        raise InputError(f"{path}: no such file")
+    try:
+        return IntelHex(str(path))
+    except IntelHexError as exc:
+        raise InputError(f"{path}: not a valid Intel HEX file: {exc}") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"{path}: cannot read: {exc}") from None
+
+
+def _overlap(firmware: IntelHex, start: int, stop: int) -> tuple[int, int] | None:
+    for seg_start, seg_stop in firmware.segments():
+        low, high = max(seg_start, start), min(seg_stop, stop)
+        if low < high:
+            return low, high
+    return None
+
+
+def block_image(design: Design, block: bytes, *, firmware: IntelHex | None = None,
+                firmware_name: str = "firmware") -> IntelHex:
+    """The padded block at its address, merged into ``firmware`` if given (no overlap)."""
+    address, size = block_area(design)
+    image = IntelHex()
+    image.frombytes(padded(design, block), offset=address)
+    if firmware is None:
+        return image
+    clash = _overlap(firmware, address, address + size)
+    if clash is not None:
+        raise InputError(f"{firmware_name}: data at 0x{clash[0]:08X}..0x{clash[1] - 1:08X} "
+                         f"overlaps the calibration block's area 0x{address:08X}, {size} bytes "
+                         "(target.calblock_address, target.calblock_size): refusing to merge")
+    merged = IntelHex()
+    merged.merge(firmware, overlap="error")
+    merged.merge(image, overlap="error")
+    return merged
+
+
+def read_area(path: Path, design: Design) -> bytes:
+    """The bytes of the block's area from a HEX image (or, for a .bin file, the raw bytes
+    ``image --bin`` writes: the area itself); the block's bytes must all be present."""
+    address, size = block_area(design)
+    if path.suffix.lower() == ".bin":
+        try:
+            data = path.read_bytes()
+        except OSError as exc:
+            raise InputError(f"{path}: cannot read: {exc.strerror}") from None
+        if len(data) < BLOCK_SIZE:
+            raise InputError(f"{path}: {len(data)} bytes, the calibration block has "
+                             f"{BLOCK_SIZE}")
+        return data[:size]
+    image = read_hex(path)
+    present = image.todict()
+    missing = next((a for a in range(address, address + BLOCK_SIZE) if a not in present), None)
+    if missing is not None:
+        raise InputError(f"{path}: no data at 0x{missing:08X}: the calibration block "
+                         f"(0x{address:08X}, {BLOCK_SIZE} bytes) is not in this image")
+    return bytes(present.get(a, ERASED) for a in range(address, address + size))

@@ -1,0 +1,103 @@
+"""Delta-sigma ADC with PGA: volts to codes, noise, gain choice and the sinc^k response.
+
+Conventions: a bipolar differential input range of +-Vref / G; code = round(Vin * G / Vref *
+2^(bits-1)) saturated to [-2^(bits-1), 2^(bits-1) - 1]; one LSB at the input is
+Vref / (G * 2^(bits-1)) volts. Rounding is to the nearest code (ties to even, numpy.rint).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+
+from hosttool.spec.schema import Adc
+
+#: Peak-to-peak over RMS for Gaussian noise, the usual "noise-free" convention
+#: (common practice, no published source).
+PEAK_TO_PEAK_OVER_RMS = 6.6
+
+
+@dataclass(frozen=True)
+class Converter:
+    """One ADC at one PGA gain and reference."""
+
+    bits: int
+    gain: int
+    reference_v: float
+
+    @property
+    def code_max(self) -> int:
+        """Largest code, 2^(bits-1) - 1."""
+        return (1 << (self.bits - 1)) - 1
+
+    @property
+    def code_min(self) -> int:
+        """Smallest code, -2^(bits-1)."""
+        return -(1 << (self.bits - 1))
+
+    @property
+    def input_range_v(self) -> float:
+        """Half of the differential input range, volts: inputs span +-this."""
+        return self.reference_v / self.gain
+
+    @property
+    def lsb_v(self) -> float:
+        """One code step referred to the input, volts."""
+        return self.input_range_v / (1 << (self.bits - 1))
+
+    def code(self, volts: ArrayLike) -> NDArray[np.int64]:
+        """Input volts to codes, rounded to nearest and saturated at the limits."""
+        scaled = np.rint(np.asarray(volts, dtype=np.float64) / self.lsb_v)
+        return np.clip(scaled, self.code_min, self.code_max).astype(np.int64)
+
+    def volts(self, code: ArrayLike) -> NDArray[np.float64]:
+        """Codes to the input volts at the centre of each code."""
+        return np.asarray(code, dtype=np.float64) * self.lsb_v
+
+    def noise_counts_rms(self, noise_uv_rms: float) -> float:
+        """Input-referred RMS noise (microvolts) in code steps."""
+        return noise_uv_rms * 1e-6 / self.lsb_v
+
+
+def best_gain(adc: Adc, peak_input_v: float, reference_v: float) -> int | None:
+    """Largest gain of the set whose range holds peak_input_v plus the overload margin.
+
+    None when even the smallest gain is too much.
+    """
+    need = peak_input_v * (1.0 + adc.overload_margin_pct / 100.0)
+    fitting = [g for g in adc.pga_gains if need <= reference_v / g]
+    return max(fitting) if fitting else None
+
+
+def sinc_magnitude(freq_hz: ArrayLike, data_rate_sps: float, order: int,
+                   decimation: float | None = None) -> NDArray[np.float64]:
+    """|H(f)| of a sinc^k decimation filter whose output rate is data_rate_sps.
+
+    With a decimation ratio N: |sin(pi f / fd) / (N sin(pi f / (N fd)))|^k; without one, the
+    limit N -> infinity, |sin(pi f / fd) / (pi f / fd)|^k (from memory; the notches at
+    multiples of fd are checked numerically in the tests).
+    """
+    f = np.asarray(freq_hz, dtype=np.float64)
+    u = np.pi * f / data_rate_sps
+    with np.errstate(invalid="ignore", divide="ignore"):
+        if decimation is None:
+            h = np.where(u == 0, 1.0, np.sin(u) / np.where(u == 0, 1.0, u))
+        else:
+            den = decimation * np.sin(u / decimation)
+            h = np.where(den == 0, 1.0, np.sin(u) / np.where(den == 0, 1.0, den))
+    return np.abs(h) ** order
+
+
+def rejection_db(magnitude: float, floor_db: float = 300.0) -> float:
+    """Attenuation in dB of a magnitude, capped at floor_db for an exact notch."""
+    if magnitude <= 10 ** (-floor_db / 20):
+        return floor_db
+    return -20.0 * math.log10(magnitude) + 0.0  # + 0.0: no "-0" for a gain of exactly 1
+
+
+def alias_hz(freq_hz: float, sample_rate: float) -> float:
+    """Where a tone lands after sampling at sample_rate: its distance to the nearest multiple."""
+    return abs(freq_hz - sample_rate * round(freq_hz / sample_rate))

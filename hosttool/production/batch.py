@@ -1,0 +1,354 @@
+"""``hosttool batch``: a whole lot from one readings file to images and the production record.
+
+Per unit: calibrate (calibration.py) and, if it passed, encode the block and its Intel HEX
+image in memory (in worker processes with ``jobs`` > 1). Units are then recorded in groups
+of ``GROUP`` while holding the output folder's lock: each unit is decided from the record,
+the group's images are written (temporary files, one flush, renames, folder fsync), then
+each unit's row is inserted in its own transaction.
+
+- Idempotent: a serial already recorded with the same spec, constants and calibration time
+  is left alone: no new row, its image is not rewritten (only put back if it went missing).
+- A serial recorded with other constants is refused unless ``recalibrate``: then a new
+  revision is recorded and the old row kept (history). Images are named
+  ``<serial>.r<revision>.hex`` and never overwritten once recorded.
+- Killed at any moment: an image is complete on disk before the row naming it commits, so
+  no partial image and no row naming a missing one can exist; a kill between the two
+  leaves an unrecorded image, which the re-run adopts (same bytes) or replaces. A power cut
+  can at most roll back the rows of the group in progress (record.py), whose images are
+  on disk: the re-run adopts them too.
+  Temporary files of a killed run are removed when the next batch starts: every image write
+  happens under the folder lock, so none can be in progress then.
+- Stations: batches into the same folder take its lock in turn, one group at a time, and
+  each row is a transaction of its own on the shared record, so two stations interleave
+  and lose nothing. One record per output folder.
+"""
+
+from __future__ import annotations
+
+import fcntl
+import hashlib
+import json
+import multiprocessing
+import os
+import re
+import socket
+from collections.abc import Callable, Iterable, Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from pathlib import Path
+
+from hosttool.design.resolve import make_design
+from hosttool.errors import InputError, OutputError
+from hosttool.formats.calblock import encode
+from hosttool.formats.caljson import CAUTIONS, constants_json
+from hosttool.formats.hexfile import block_area, block_image, hex_text
+from hosttool.formats.readings import (
+    ReadingsFile,
+    UnitReadings,
+    format_time_utc,
+    load_readings,
+    unit_cal_time,
+)
+from hosttool.production.fit import Context, calibrate_unit
+from hosttool.production.record import Record
+from hosttool.spec.schema import load_spec
+from hosttool.util.atomic_group import write_group
+
+#: Units handed to a worker process at a time (with jobs > 1).
+CHUNK = 64
+#: Units recorded per hold of the folder lock (their images share one flush).
+GROUP = 32
+#: The lock file in the output folder that stations take in turn for each group.
+LOCK_NAME = ".hosttool-batch.lock"
+#: Temporary files write_group leaves when killed: ".<serial>.r<revision>.hex.tmp".
+_TEMPORARY = re.compile(r"^\.[A-Za-z0-9][A-Za-z0-9._-]*\.r[0-9]+\.hex\.tmp$")
+
+
+@dataclass(frozen=True)
+class Prepared:
+    """One unit calibrated and, if it passed, imaged in memory; or refused (reason)."""
+
+    serial: str
+    refused: str                  # "" unless refused
+    verdict: str                  # "pass" / "fail" ("" when refused)
+    reasons: tuple[str, ...]
+    cal_time_utc: str             # ISO 8601
+    constants: str                # canonical JSON
+    figures: str                  # JSON
+    image: bytes | None           # Intel HEX bytes when passed
+
+
+@dataclass(frozen=True)
+class Outcome:
+    """What happened to one unit: status "pass", "fail" or "refused"."""
+
+    serial: str
+    status: str
+    reason: str
+    hex_file: str | None
+    new: bool                     # a row was added by this run
+
+
+@dataclass(frozen=True)
+class BatchSummary:
+    """All units of the batch, in file order."""
+
+    spec_name: str
+    outcomes: tuple[Outcome, ...]
+
+    @property
+    def exit_code(self) -> int:
+        """2 if some unit was refused, 1 if some failed its limits, else 0."""
+        statuses = {o.status for o in self.outcomes}
+        return 2 if "refused" in statuses else 1 if "fail" in statuses else 0
+
+
+def prepare(ctx: Context, unit: UnitReadings, override: int | None) -> Prepared:
+    """Calibrate one unit and build its image bytes (pure: no files, no record)."""
+    try:
+        cal_time = unit_cal_time(unit, override)
+        result = calibrate_unit(ctx, unit, cal_time_utc=cal_time)
+    except InputError as exc:
+        return Prepared(unit.serial, str(exc), "", (), "", "", "", None)
+    image = None
+    if result.passed:
+        block = encode(ctx.design, result.constants, serial=unit.serial, cal_time_utc=cal_time)
+        image = hex_text(block_image(ctx.design, block)).encode("ascii")
+    return Prepared(
+        serial=unit.serial, refused="", verdict=result.verdict, reasons=result.reasons,
+        cal_time_utc=format_time_utc(cal_time),
+        constants=json.dumps(constants_json(result.constants), sort_keys=True,
+                             separators=(",", ":")),
+        figures=json.dumps(result.figures, sort_keys=True), image=image)
+
+
+# ----------------------------------------------------------------------------- recording
+
+
+def _sha256(data: bytes) -> str:
+    return hashlib.sha256(data).hexdigest()
+
+
+@dataclass(frozen=True)
+class Station:
+    """Where and how this batch records."""
+
+    record: Record
+    folder: Path
+    name: str
+    recalibrate: bool
+    spec_name: str
+    spec_sha256: str
+    readings: ReadingsFile
+    readings_name: str
+
+    @contextmanager
+    def folder_lock(self) -> Iterator[None]:
+        """Exclusive use of the output folder (flock on ``LOCK_NAME``) for one group."""
+        try:
+            fd = os.open(self.folder / LOCK_NAME, os.O_RDWR | os.O_CREAT, 0o666)
+        except OSError as exc:
+            raise OutputError(f"{self.folder / LOCK_NAME}: cannot open: {exc.strerror}") \
+                from None
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX)
+            yield
+        finally:
+            os.close(fd)
+
+
+@dataclass(frozen=True)
+class _Plan:
+    """What to do for one unit, decided from the record before the group's files."""
+
+    prepared: Prepared
+    outcome: Outcome | None       # settled already (refused, or recorded before)
+    current_id: int | None        # the current row the new one supersedes
+    revision: int
+    hex_file: str | None
+    write: bool                   # the image file must be (re)written
+
+
+def _existing(path: Path) -> bytes | None:
+    try:
+        return path.read_bytes()
+    except FileNotFoundError:
+        return None
+    except OSError as exc:
+        raise OutputError(f"{path}: cannot read: {exc.strerror}") from None
+
+
+def _decide(st: Station, p: Prepared) -> _Plan:
+    if p.refused:
+        return _Plan(p, Outcome(p.serial, "refused", p.refused, None, False), None, 0, None,
+                     False)
+    reason = "; ".join(p.reasons)
+    row = st.record.current(p.serial)
+    if row is not None:
+        if (row.spec_sha256, row.constants, row.cal_time_utc) == (
+                st.spec_sha256, p.constants, p.cal_time_utc):
+            done = Outcome(p.serial, p.verdict, reason, row.hex_file, False)
+            if row.hex_file is None or p.image is None:
+                return _Plan(p, done, row.id, row.revision, None, False)
+            existing = _existing(st.folder / row.hex_file)
+            if existing is not None and existing != p.image:
+                return _Plan(p, Outcome(
+                    p.serial, "refused", f"{row.hex_file}: differs from the image its record "
+                    f"names (sha256 {_sha256(existing)[:16]}... instead of "
+                    f"{_sha256(p.image)[:16]}...): changed outside the tool; not overwritten",
+                    row.hex_file, False), row.id, row.revision, None, False)
+            return _Plan(p, done, row.id, row.revision, row.hex_file, existing is None)
+        if not st.recalibrate:
+            return _Plan(p, Outcome(
+                p.serial, "refused", f"already recorded (revision {row.revision}, station "
+                f"{row.station}, calibrated {row.cal_time_utc}) with other constants; "
+                "--recalibrate records a new revision and keeps the history", row.hex_file,
+                False), row.id, row.revision, None, False)
+    revision = st.record.next_revision(p.serial)
+    if p.image is None:
+        return _Plan(p, None, None if row is None else row.id, revision, None, False)
+    hex_file = f"{p.serial}.r{revision}.hex"
+    # an existing file of that name is a killed run's, never recorded: adopt or replace it
+    write = _existing(st.folder / hex_file) != p.image
+    return _Plan(p, None, None if row is None else row.id, revision, hex_file, write)
+
+
+def _row(st: Station, p: Prepared, revision: int, hex_file: str | None) -> dict[str, object]:
+    return {
+        "serial": p.serial, "revision": revision, "current": 1, "station": st.name,
+        "recorded_utc": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%S.%fZ"),
+        "cal_time_utc": p.cal_time_utc, "spec_name": st.spec_name,
+        "spec_sha256": st.spec_sha256, "readings_file": st.readings_name,
+        "readings_sha256": st.readings.sha256, "constants": p.constants,
+        "figures": p.figures, "verdict": p.verdict, "reasons": json.dumps(list(p.reasons)),
+        "hex_file": hex_file, "hex_sha256": None if p.image is None else _sha256(p.image),
+    }
+
+
+def _record(st: Station, plan: _Plan) -> Outcome:
+    """Insert the unit's row in its own transaction, unless the record moved meanwhile."""
+    if plan.outcome is not None:
+        return plan.outcome
+    p = plan.prepared
+    with st.record.unit():
+        row = st.record.current(p.serial)
+        if (None if row is None else row.id) != plan.current_id \
+                or st.record.next_revision(p.serial) != plan.revision:
+            return Outcome(p.serial, "refused", "recorded meanwhile by another station "
+                           "writing into the same record from another folder; run again",
+                           None, False)
+        st.record.add(_row(st, p, plan.revision, plan.hex_file), plan.current_id)
+    return Outcome(p.serial, p.verdict, "; ".join(p.reasons), plan.hex_file, True)
+
+
+def commit_group(st: Station, group: list[Prepared]) -> list[Outcome]:
+    """Record a group of units: decide each from the record, write the group's images
+    (durably, in one flush), then insert each unit's row in its own transaction."""
+    with st.folder_lock():
+        plans = [_decide(st, p) for p in group]
+        write_group(st.folder, {plan.hex_file: plan.prepared.image for plan in plans
+                                if plan.write and plan.hex_file and plan.prepared.image})
+        outcomes = [_record(st, plan) for plan in plans]
+        st.record.checkpoint()
+        return outcomes
+
+
+def clear_temporaries(st: Station) -> int:
+    """Remove the temporary files a killed run left; returns how many. Done under the
+    folder lock: every image write happens under it, so none is in progress."""
+    with st.folder_lock():
+        stale = [e.path for e in os.scandir(st.folder) if _TEMPORARY.match(e.name)]
+        for path in stale:
+            Path(path).unlink(missing_ok=True)
+    return len(stale)
+
+
+def _groups(stream: Iterable[Prepared], size: int) -> Iterator[list[Prepared]]:
+    group: list[Prepared] = []
+    for p in stream:
+        group.append(p)
+        if len(group) == size:
+            yield group
+            group = []
+    if group:
+        yield group
+
+
+# ----------------------------------------------------------------------------- batch
+
+
+_WORKER: list[tuple[Context, int | None]] = []      # filled in worker processes only
+
+
+def _start_worker(ctx: Context, override: int | None) -> None:
+    _WORKER.append((ctx, override))
+
+
+def _work(unit: UnitReadings) -> Prepared:
+    ctx, override = _WORKER[0]
+    return prepare(ctx, unit, override)
+
+
+@contextmanager
+def _preparer(ctx: Context, override: int | None, jobs: int, count: int
+              ) -> Iterator[Callable[[list[UnitReadings]], Iterator[Prepared]]]:
+    """A function giving prepared units in file order, in ``jobs`` worker processes if > 1.
+
+    The workers are forked before the record is opened (an SQLite connection must not
+    cross a fork) and inherit the context instead of receiving it pickled."""
+    if jobs <= 1 or count < 2 * CHUNK:
+        yield lambda units: (prepare(ctx, u, override) for u in units)
+        return
+    with multiprocessing.get_context("fork").Pool(
+            jobs, initializer=_start_worker, initargs=(ctx, override)) as pool:
+        yield lambda units: pool.imap(_work, units, chunksize=CHUNK)
+
+
+def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: Path | None,
+              station: str | None, recalibrate: bool, cal_time: int | None, jobs: int = 1,
+              progress: Callable[[Iterable[Prepared], int], Iterable[Prepared]] | None = None
+              ) -> BatchSummary:
+    """Calibrate, image and record every unit of a readings file."""
+    design = make_design(load_spec(spec_path))
+    ctx = Context.of(design)
+    block_area(design)
+    readings = load_readings(readings_path, design.spec)
+    if not out.is_dir():
+        raise OutputError(f"--out: {out} is not an existing folder")
+    units = list(readings.units.values())
+    with _preparer(ctx, cal_time, jobs, len(units)) as prepared:
+        record = Record(db if db is not None else out / "production.sqlite")
+        st = Station(record=record, folder=out, name=station or socket.gethostname(),
+                     recalibrate=recalibrate, spec_name=design.spec.name,
+                     spec_sha256=design.spec.sha256, readings=readings,
+                     readings_name=readings_path.name)
+        try:
+            clear_temporaries(st)
+            stream: Iterable[Prepared] = prepared(units)
+            if progress is not None:
+                stream = progress(stream, len(units))
+            outcomes = tuple(o for group in _groups(stream, GROUP)
+                             for o in commit_group(st, group))
+        finally:
+            record.close()
+    return BatchSummary(design.spec.name, outcomes)
+
+
+def batch_text(summary: BatchSummary, *, readings: str, out: Path) -> str:
+    """The summary of a batch: counts, then one line per unit that did not pass."""
+    counts = {s: sum(o.status == s for o in summary.outcomes) for s in ("pass", "fail",
+                                                                          "refused")}
+    new = sum(o.new for o in summary.outcomes)
+    lines = [f"{summary.spec_name}: batch of {len(summary.outcomes)} units from {readings}",
+             f"  passed   {counts['pass']:6d}  (images in {out})",
+             f"  failed   {counts['fail']:6d}  (no image)",
+             f"  refused  {counts['refused']:6d}  (not recorded: fix the readings or the "
+             "record)",
+             f"  {new} rows added to the record; "
+             f"{len(summary.outcomes) - new - counts['refused']} units were already recorded"]
+    for o in summary.outcomes:
+        if o.status != "pass":
+            lines.append(f"  {o.serial}: {o.status.upper()}: {o.reason}")
+    lines += [""] + [f"caution: {text}" for text in CAUTIONS]
+    return "\n".join(lines) + "\n"

@@ -1,0 +1,544 @@
+"""Per-unit calibration: one unit's readings to its integer constants, figures and verdict.
+
+The unit is modelled in raw counts as a straight line in the design's shape variable u,
+with the zero and the span drifting linearly with temperature:
+
+    raw = a + z dT + b (1 + k dT) u(m)          dT = T - temperature.reference_c
+
+u(m) = m for "none" and "polynomial" linearisation; for "bridge_inverse" u is the nominal
+bridge's exact output normalised to its tangent slope, so the design's nominal inverse
+polynomial still applies and only zero and span are fitted. The fit is ordinary least
+squares (numpy.linalg.lstsq) over every reading, in [1, u] or [1, dT, u, u dT]. The
+"polynomial" mode then fits the per-unit C_0 .. C_n in the design's normalised variable
+w = s / 2^K to what the firmware must output. Every constant is rounded into the design's
+format and checked with ``design.check_constants`` (via ``Design.with_constants``); the
+verdict comes from the unit's readings run through the bit-exact static path
+(``model.static_integer``) with those constants: what the firmware will output.
+
+Refused (``InputError``, exit status 2): saturated readings, non-monotonic response,
+readings of one point that disagree, too few points, noise far above the ADC's, missing
+readings for a limit the spec sets. A unit that misses its limits is not refused: its
+verdict is "fail" with the reasons.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+from numpy.typing import NDArray
+
+from hosttool.design.model import static_integer
+from hosttool.design.resolve import LIN_FRAC, Design, UnitConstants, check_constants
+from hosttool.errors import DesignError, InputError
+from hosttool.formats.caljson import CalRecord, read_calfile
+from hosttool.formats.readings import UnitReadings
+from hosttool.physics.bridge import bridge_of
+from hosttool.physics.oiml import max_intervals, mpe_intervals
+
+F64 = NDArray[np.float64]
+
+#: A reading whose mean lies within this many standard deviations of a code limit may have
+#: clipped samples: refused as saturated (our choice).
+SATURATION_SIGMA = 3.0
+#: raw_std above this many times (calibration.max_noise_ratio x the ADC noise) is refused as
+#: an unsettled measurement; between 1 and this factor the unit fails its noise limit.
+NOISE_REFUSE_FACTOR = 5.0
+#: Temperatures that chain together in steps of at most this are one temperature, C.
+TEMP_GROUP_C = 1.0
+#: Readings of one point (reference and temperature) differing by more than this share of
+#: the nominal span are refused as disagreeing duplicates (our choice; hysteresis and
+#: repeatability are orders of magnitude smaller).
+DISAGREE_PCT_SPAN = 1.0
+
+
+@dataclass(frozen=True)
+class Criterion:
+    """One row of the pass/fail table; ``limit`` None means reported, not judged."""
+
+    key: str                # stable name (JSON, record)
+    label: str
+    value: float | None     # None: could not be evaluated (constants outside their formats)
+    limit: float | None
+    unit: str
+    source: str             # the spec key of the limit
+    passed: bool
+
+
+@dataclass(frozen=True)
+class Rounding:
+    """What rounding one constant into its format adds to the output, worst case."""
+
+    constant: str
+    integer: int
+    exact: float            # the value before rounding, in the integer's units
+    adds: float             # output units, worst over the measuring and temperature range
+
+
+@dataclass(frozen=True)
+class Point:
+    """One reading through the bit-exact static path."""
+
+    line: int
+    reference: float
+    temperature_c: float
+    up: bool
+    output: float | None    # firmware output, output units
+    error: float | None     # output - reference
+    linearity: float        # residual of the straight-line fit, output units
+
+
+@dataclass(frozen=True)
+class UnitCalibration:
+    """The outcome for one unit."""
+
+    serial: str
+    cal_time_utc: int
+    constants: UnitConstants
+    formats_ok: bool
+    formats_reason: str
+    figures: dict[str, float | None]
+    criteria: tuple[Criterion, ...]
+    rounding: tuple[Rounding, ...]
+    readings: UnitReadings
+    output: F64 | None            # firmware output per reading, output units
+    linearity: F64                # straight-line residual per reading, output units
+
+    @property
+    def points(self) -> tuple[Point, ...]:
+        """Every reading with its firmware output and error (for the table and CAL.json)."""
+        u, out = self.readings, self.output
+        return tuple(Point(int(u.lines[i]), float(u.reference[i]), float(u.temperature_c[i]),
+                           bool(u.up[i]), None if out is None else float(out[i]),
+                           None if out is None else float(out[i] - u.reference[i]),
+                           float(self.linearity[i]))
+                     for i in range(u.reference.size))
+
+    @property
+    def passed(self) -> bool:
+        """True when the constants fit their formats and every judged criterion passes."""
+        return self.formats_ok and all(c.passed for c in self.criteria)
+
+    @property
+    def verdict(self) -> str:
+        """"pass" or "fail"."""
+        return "pass" if self.passed else "fail"
+
+    @property
+    def reasons(self) -> tuple[str, ...]:
+        """One line per failed criterion."""
+        out = [] if self.formats_ok else [self.formats_reason]
+        for c in self.criteria:
+            if not c.passed:
+                shown = "not evaluated" if c.value is None else f"{c.value:.4g} {c.unit}"
+                out.append(f"{c.label}: {shown} exceeds {c.limit:.4g} {c.unit} ({c.source})")
+        return tuple(out)
+
+
+@dataclass(frozen=True)
+class Context:
+    """Everything about the spec a unit's calibration needs, computed once per spec."""
+
+    design: Design
+    resolution: float          # output units per LSB
+    full_scale: float          # output units
+    span_range: float          # m_max - m_min, output units
+    nominal_b: float           # counts per unit of u, signed
+    noise_counts: float        # ADC noise, counts RMS (budget)
+    ratio_per_count: float     # bridge output ratio (V/V) per count
+    code_min: int
+    code_max: int
+    shape_zero: float          # bridge: r(0) for the normalised shape
+    shape_slope: float         # bridge: tangent slope
+
+    @classmethod
+    def of(cls, design: Design) -> Context:
+        """Build once per spec; refuses a spec without a [calibration] section."""
+        spec = design.spec
+        if spec.calibration is None:
+            raise InputError(f"{spec.source}: calibration: the spec has no [calibration] "
+                             "section (reference points and limits)")
+        cal = spec.calibration
+        if cal.oiml_class is not None:
+            n = spec.sensor.full_scale / spec.output.resolution
+            if n > max_intervals(cal.oiml_class) * (1 + 1e-9):
+                raise InputError(f"{spec.source}: calibration.oiml_class: class "
+                                 f"{cal.oiml_class} covers at most "
+                                 f"{max_intervals(cal.oiml_class):g} e; the range is {n:g} e "
+                                 f"at output.resolution = {spec.output.resolution:g}")
+        bridge = bridge_of(spec.sensor)
+        lsb_v = design.budget.converter(spec.adc.bits).lsb_v
+        volts = spec.excitation.voltage_v
+        return cls(
+            design=design, resolution=spec.output.resolution,
+            full_scale=spec.sensor.full_scale, span_range=bridge.m_max - bridge.m_min,
+            nominal_b=bridge.sensitivity * volts / lsb_v,
+            noise_counts=design.budget.noise_counts_rms,
+            ratio_per_count=lsb_v / volts,
+            code_min=-(1 << (spec.adc.bits - 1)), code_max=(1 << (spec.adc.bits - 1)) - 1,
+            shape_zero=bridge.zero_ratio - bridge.offset, shape_slope=bridge.sensitivity)
+
+    def shape(self, reference: F64) -> F64:
+        """u(m): the reference in the unit's fitted variable (output units)."""
+        lin = self.design.linearisation
+        if lin is None or lin.mode != "bridge_inverse":
+            return reference
+        bridge = bridge_of(self.design.spec.sensor)
+        ratio = np.asarray(bridge.ratio(reference)) - bridge.offset
+        return (ratio - self.shape_zero) / self.shape_slope
+
+
+# ----------------------------------------------------------------------------- refusals
+
+
+@dataclass(frozen=True)
+class _Layout:
+    """The readings as plain lists (faster than numpy at a dozen values), grouped into
+    points: (temperature group, reference in LSB) -> indices, in file order."""
+
+    mean: list[float]
+    up: list[bool]
+    group: list[int]
+    points: dict[tuple[int, int], list[int]]
+
+    @classmethod
+    def of(cls, ctx: Context, u: UnitReadings) -> _Layout:
+        temps = u.temperature_c.tolist()
+        order = sorted(range(len(temps)), key=temps.__getitem__)
+        group = [0] * len(temps)
+        g = 0
+        for before, after in zip(order, order[1:], strict=False):
+            g += temps[after] - temps[before] > TEMP_GROUP_C
+            group[after] = g
+        points: dict[tuple[int, int], list[int]] = {}
+        for i, ref in enumerate(u.reference.tolist()):
+            points.setdefault((group[i], round(ref / ctx.resolution)), []).append(i)
+        return cls(u.raw_mean.tolist(), u.up.tolist(), group, points)
+
+    def directions(self, idx: list[int]) -> tuple[list[float], list[float]]:
+        """The means at one point, split into up and down readings."""
+        return ([self.mean[i] for i in idx if self.up[i]],
+                [self.mean[i] for i in idx if not self.up[i]])
+
+
+def _refuse_rows(ctx: Context, u: UnitReadings) -> None:
+    spec = ctx.design.spec
+    assert spec.calibration is not None
+    top = u.raw_mean + SATURATION_SIGMA * u.raw_std
+    bottom = u.raw_mean - SATURATION_SIGMA * u.raw_std
+    clipped = np.nonzero((top >= ctx.code_max) | (bottom <= ctx.code_min))[0]
+    if clipped.size:
+        i = int(clipped[0])
+        limit = ctx.code_max if top[i] >= ctx.code_max else ctx.code_min
+        raise InputError(f"{u.where(i)}: raw_mean_counts: {u.raw_mean[i]:.1f} counts (std "
+                         f"{u.raw_std[i]:.1f}) reaches the {spec.adc.bits}-bit limit {limit}: "
+                         "the ADC saturated; check the gain, the wiring and the load")
+    far = NOISE_REFUSE_FACTOR * spec.calibration.max_noise_ratio * ctx.noise_counts
+    noisy = np.nonzero(u.raw_std > far)[0]
+    if noisy.size:
+        i = int(noisy[0])
+        raise InputError(f"{u.where(i)}: raw_std_counts: {u.raw_std[i]:.4g} counts is "
+                         f"{u.raw_std[i] / ctx.noise_counts:.3g} x the ADC noise "
+                         f"({ctx.noise_counts:.4g} counts RMS), far above "
+                         f"calibration.max_noise_ratio = {spec.calibration.max_noise_ratio:g}: "
+                         "the reading was not settled (vibration, draught, loose wiring?); "
+                         "measure again")
+
+
+def _refuse_points(ctx: Context, u: UnitReadings, lay: _Layout) -> None:
+    spec = ctx.design.spec
+    cal = spec.calibration
+    assert cal is not None
+    unit = spec.sensor.unit
+    where = f"{u.source}: serial {u.serial}"
+    refs = {key for _, key in lay.points}
+    for p in cal.points:
+        if round(p / ctx.resolution) not in refs:
+            raise InputError(f"{where}: no reading at the reference {p:g} {unit} that "
+                             "calibration.points asks for")
+    lin = ctx.design.linearisation
+    needed = spec.linearisation.order + 1 if lin is not None and lin.mode == "polynomial" \
+        else 2
+    if len(refs) < needed:
+        raise InputError(f"{where}: {len(refs)} distinct reference values; the fit needs at "
+                         f"least {needed}")
+    tolerance = DISAGREE_PCT_SPAN / 100 * abs(ctx.nominal_b) * ctx.span_range
+    for idx in lay.points.values():
+        values = [lay.mean[i] for i in idx]
+        if max(values) - min(values) > tolerance:
+            hi, lo = idx[values.index(max(values))], idx[values.index(min(values))]
+            raise InputError(f"{u.where(hi)}: raw_mean_counts: {lay.mean[hi]:.1f} and line "
+                             f"{u.lines[lo]} ({lay.mean[lo]:.1f}) read the same reference "
+                             f"{u.reference[hi]:g} {unit} at the same temperature but differ "
+                             f"by more than {DISAGREE_PCT_SPAN:g} % of the span: duplicate "
+                             "points that disagree")
+    _refuse_non_monotonic(u, lay)
+    if spec.temperature is not None:
+        per_group: dict[int, int] = {}
+        for g, _ in lay.points:
+            per_group[g] = per_group.get(g, 0) + 1
+        usable = sum(count >= 2 for count in per_group.values())
+        if usable < 2:
+            raise InputError(f"{where}: temperature compensation needs readings at two or "
+                             f"more temperatures (more than {TEMP_GROUP_C:g} C apart), each "
+                             f"with at least two reference values; found {usable}")
+    split = [lay.directions(idx) for idx in lay.points.values()]
+    if cal.max_hysteresis is not None and not any(up and down for up, down in split):
+        raise InputError(f"{where}: calibration.max_hysteresis is set but no reference has "
+                         "both 'up' and 'down' readings")
+    if cal.max_repeatability is not None and not any(
+            len(up) >= 2 or len(down) >= 2 for up, down in split):
+        raise InputError(f"{where}: calibration.max_repeatability is set but no point is "
+                         "repeated (two readings, same reference, temperature and direction)")
+
+
+def _refuse_non_monotonic(u: UnitReadings, lay: _Layout) -> None:
+    steps: list[tuple[float, int, int]] = []
+    for g in sorted(set(lay.group)):
+        keys = sorted(k for gg, k in lay.points if gg == g)
+        members = [lay.points[(g, k)] for k in keys]
+        means = [sum(lay.mean[i] for i in idx) / len(idx) for idx in members]
+        steps += [(means[j] - means[j - 1], members[j - 1][0], members[j][0])
+                  for j in range(1, len(keys))]
+    direction = math.copysign(1.0, sum(step for step, _, _ in steps))
+    for step, before, after in steps:
+        if step * direction <= 0:
+            raise InputError(f"{u.where(after)}: raw_mean_counts: the response at "
+                             f"{u.reference[after]:g} is not beyond the one at "
+                             f"{u.reference[before]:g} (line {u.lines[before]}): the response "
+                             "is not monotonic (reading mislabelled, load shunted or cell "
+                             "damaged?)")
+
+
+# ----------------------------------------------------------------------------- fit
+
+
+@dataclass(frozen=True)
+class _Fit:
+    a: float                  # zero, counts
+    b: float                  # counts per unit of u
+    z: float                  # zero drift, counts per C
+    k: float                  # relative span drift, per C
+    residual: F64             # straight-line residuals, counts
+
+
+def _fit(ctx: Context, u: UnitReadings, shape: F64) -> _Fit:
+    temp = ctx.design.spec.temperature
+    ones = np.ones_like(shape)
+    if temp is None:
+        x = np.column_stack((ones, shape))
+    else:
+        dt = u.temperature_c - temp.reference_c
+        x = np.column_stack((ones, dt, shape, shape * dt))
+    beta = np.linalg.lstsq(x, u.raw_mean, rcond=None)[0]
+    residual = u.raw_mean - x @ beta
+    if temp is None:
+        return _Fit(float(beta[0]), float(beta[1]), 0.0, 0.0, residual)
+    return _Fit(float(beta[0]), float(beta[2]), float(beta[1]), float(beta[3] / beta[2]),
+                residual)
+
+
+def _constants(ctx: Context, u: UnitReadings, fit: _Fit) -> tuple[UnitConstants, dict[str, float]]:
+    """Round the fit into the design's formats; also return the unrounded values."""
+    d = ctx.design
+    g, s = d.guard_bits, d.scale.shift
+    exact = {"offset": math.ldexp(fit.a, g),
+             "scale_mul": math.ldexp(1.0 / (fit.b * ctx.resolution), s - g)}
+    offset, scale_mul = round(exact["offset"]), round(exact["scale_mul"])
+    realised = math.ldexp(scale_mul, -s)
+    tc_zero = tc_span = 0
+    tc = d.temperature
+    if tc is not None:
+        exact["tc_zero"] = math.ldexp(fit.z * realised / 100, g + tc.zero_shift)
+        exact["tc_span"] = math.ldexp(-fit.k / 100, LIN_FRAC + tc.span_shift)
+        tc_zero, tc_span = round(exact["tc_zero"]), round(exact["tc_span"])
+    lin: tuple[int, ...] = ()
+    if d.linearisation is not None and d.linearisation.mode == "bridge_inverse":
+        lin = d.nominal.lin
+        for k, c in enumerate(d.linearisation.coeffs):
+            exact[f"lin[{k}]"] = math.ldexp(c, LIN_FRAC)
+    elif d.linearisation is not None:
+        k_norm = d.linearisation.norm_shift
+        w = (np.ldexp(u.raw_mean, g) - offset) * realised / 2.0 ** k_norm
+        target = u.reference / ctx.resolution
+        if tc is not None:
+            dt = np.clip(np.rint(u.temperature_c * 100), tc.min_centi, tc.max_centi) \
+                - tc.reference_centi
+            gamma = tc_span / 2.0 ** (tc.span_shift + LIN_FRAC)
+            target = target / (1 + gamma * dt) + tc_zero / 2.0 ** tc.zero_shift * dt
+        coeffs = np.polynomial.polynomial.polyfit(w, target / 2.0 ** k_norm,
+                                                  d.spec.linearisation.order)
+        for k, c in enumerate(coeffs):
+            exact[f"lin[{k}]"] = math.ldexp(float(c), LIN_FRAC)
+        lin = tuple(round(exact[f"lin[{k}]"]) for k in range(coeffs.size))
+    return UnitConstants(offset=offset, scale_mul=scale_mul, lin=lin, tc_zero=tc_zero,
+                         tc_span=tc_span), exact
+
+
+def _rounding(ctx: Context, c: UnitConstants, exact: dict[str, float]) -> tuple[Rounding, ...]:
+    d = ctx.design
+    res, fs = ctx.resolution, ctx.full_scale
+    realised = d.scale.realised(c.scale_mul)
+    out = [Rounding("offset", c.offset, exact["offset"],
+                    abs(c.offset - exact["offset"]) * abs(realised) * res),
+           Rounding("scale_mul", c.scale_mul, exact["scale_mul"],
+                    abs(c.scale_mul / exact["scale_mul"] - 1) * fs)]
+    if d.linearisation is not None:
+        k_norm = d.linearisation.norm_shift
+        reach = fs / res / 2.0 ** k_norm          # |w| over the measuring range
+        for k, value in enumerate(c.lin):
+            ideal = exact[f"lin[{k}]"]
+            out.append(Rounding(f"lin[{k}]", value, ideal, abs(value - ideal) / 2.0 ** LIN_FRAC
+                                * 2.0 ** k_norm * reach ** k * res))
+    tc = d.temperature
+    if tc is not None:
+        out.append(Rounding("tc_zero", c.tc_zero, exact["tc_zero"],
+                            abs(c.tc_zero - exact["tc_zero"]) / 2.0 ** tc.zero_shift
+                            * tc.dt_max * res))
+        out.append(Rounding("tc_span", c.tc_span, exact["tc_span"],
+                            abs(c.tc_span - exact["tc_span"])
+                            / 2.0 ** (tc.span_shift + LIN_FRAC) * tc.dt_max * fs))
+    return tuple(out)
+
+
+# ----------------------------------------------------------------------------- judging
+
+
+def _figures(ctx: Context, fit: _Fit, lay: _Layout, u: UnitReadings,
+             error: F64 | None) -> dict[str, float | None]:
+    b = abs(fit.b)
+    hysteresis: float | None = None
+    repeatability: float | None = None
+    for idx in lay.points.values():
+        up, down = lay.directions(idx)
+        if up and down:
+            hysteresis = max(hysteresis or 0.0,
+                             abs(sum(up) / len(up) - sum(down) / len(down)) / b)
+        for same in (up, down):
+            if len(same) >= 2:
+                repeatability = max(repeatability or 0.0, (max(same) - min(same)) / b)
+    figures: dict[str, float | None] = {
+        "zero_counts": fit.a,
+        "zero_mv_per_v": fit.a * ctx.ratio_per_count * 1e3,
+        "span_counts_per_unit": fit.b,
+        "span_deviation_pct": (fit.b / ctx.nominal_b - 1) * 100,
+        "nonlinearity": float(np.max(np.abs(fit.residual))) / b,
+        "hysteresis": hysteresis,             # None: no point read both up and down
+        "repeatability": repeatability,       # None: no point repeated
+        "noise_ratio": float(u.raw_std.max()) / ctx.noise_counts,
+    }
+    if ctx.design.temperature is not None:
+        figures["zero_tc_ppm_fs_per_c"] = fit.z / fit.b / ctx.full_scale * 1e6
+        figures["span_tc_ppm_per_c"] = fit.k * 1e6
+    if error is not None:
+        figures["max_error"] = float(np.max(np.abs(error)))
+    return figures
+
+
+def _criteria(ctx: Context, u: UnitReadings, figures: dict[str, float | None],
+              error: F64 | None) -> tuple[Criterion, ...]:
+    spec = ctx.design.spec
+    cal = spec.calibration
+    assert cal is not None
+    unit = spec.sensor.unit
+    worst = figures.get("max_error")
+
+    def size(key: str) -> float:
+        value = figures[key]
+        assert value is not None            # always measured
+        return abs(value)
+
+    rows: list[tuple[str, str, float | None, float | None, str, str]] = [
+        ("max_error", "error", worst, cal.max_error, unit, "calibration.max_error")]
+    if cal.max_error_pct_span is not None:
+        rows.append(("max_error_pct_span", "error, % of span",
+                     None if worst is None else worst / ctx.span_range * 100,
+                     cal.max_error_pct_span, "%", "calibration.max_error_pct_span"))
+    if cal.oiml_class is not None:
+        ratio = None
+        if error is not None:
+            mpe = np.array([mpe_intervals(cal.oiml_class, r / ctx.resolution)
+                            for r in u.reference]) * ctx.resolution
+            ratio = float(np.max(np.abs(error) / mpe))
+        rows.append(("oiml_mpe_ratio", f"error / mpe of class {cal.oiml_class}", ratio, 1.0,
+                     "", "calibration.oiml_class (OIML R 76-1)"))
+    rows += [
+        ("zero_offset", "zero offset", size("zero_mv_per_v"),
+         cal.max_zero_offset_mv_per_v, "mV/V", "calibration.max_zero_offset_mv_per_v"),
+        ("span_deviation", "span against nominal", size("span_deviation_pct"),
+         cal.span_tolerance_pct, "%", "calibration.span_tolerance_pct"),
+        ("noise_ratio", "noise / ADC noise", figures["noise_ratio"], cal.max_noise_ratio, "",
+         "calibration.max_noise_ratio"),
+        ("hysteresis", "hysteresis", figures["hysteresis"], cal.max_hysteresis, unit,
+         "calibration.max_hysteresis"),
+        ("repeatability", "repeatability", figures["repeatability"], cal.max_repeatability,
+         unit, "calibration.max_repeatability"),
+        ("nonlinearity", "nonlinearity before correction", figures["nonlinearity"], None,
+         unit, "straight-line fit"),
+    ]
+    temp = spec.temperature
+    if temp is not None:
+        rows += [
+            ("zero_tc", "zero temperature coefficient", size("zero_tc_ppm_fs_per_c"),
+             temp.max_zero_tc_ppm_fs_per_c, "ppm FS/C", "temperature.max_zero_tc_ppm_fs_per_c"),
+            ("span_tc", "span temperature coefficient", size("span_tc_ppm_per_c"),
+             temp.max_span_tc_ppm_per_c, "ppm/C", "temperature.max_span_tc_ppm_per_c")]
+    return tuple(Criterion(key, label, value, limit, unit_, source,
+                           limit is None or (value is not None and value <= limit))
+                 for key, label, value, limit, unit_, source in rows)
+
+
+def calibrate_unit(ctx: Context, u: UnitReadings, *, cal_time_utc: int) -> UnitCalibration:
+    """Fit, encode, judge one unit (``InputError`` if its readings are refused)."""
+    _refuse_rows(ctx, u)
+    lay = _Layout.of(ctx, u)
+    _refuse_points(ctx, u, lay)
+    fit = _fit(ctx, u, ctx.shape(u.reference))
+    constants, exact = _constants(ctx, u, fit)
+    output: F64 | None = None
+    error: F64 | None = None
+    formats_ok, formats_reason = True, ""
+    try:
+        unit_design = ctx.design.with_constants(constants)
+    except DesignError as exc:
+        formats_ok = False
+        formats_reason = str(exc).split(": ", 1)[-1]
+    else:
+        codes = np.rint(u.raw_mean).astype(np.int64)
+        temps = np.rint(u.temperature_c * 100).astype(np.int64)
+        firmware = static_integer(unit_design, codes, temps).output * ctx.resolution
+        output = np.asarray(firmware, dtype=np.float64)
+        error = output - u.reference
+    figures = _figures(ctx, fit, lay, u, error)
+    return UnitCalibration(
+        serial=u.serial, cal_time_utc=cal_time_utc, constants=constants,
+        formats_ok=formats_ok, formats_reason=formats_reason, figures=figures,
+        criteria=_criteria(ctx, u, figures, error), rounding=_rounding(ctx, constants, exact),
+        readings=u, output=output, linearity=fit.residual / abs(fit.b))
+
+
+# ----------------------------------------------------------------------------- CAL.json
+
+
+def read_passed(path: Path, design: Design) -> CalRecord:
+    """A CAL.json for ``design``'s spec whose unit passed, its constants checked against the
+    design's formats; anything else is refused (exit status 2)."""
+    record = read_calfile(path, design)
+    if record.verdict != "pass":
+        raise InputError(f"{path}: verdict: the unit {record.serial} failed its limits; its "
+                         "constants must not go into a unit")
+    check_constants(record.constants, bits=design.spec.adc.bits, g=design.guard_bits,
+                    scale=design.scale, lin=design.linearisation, temp=design.temperature,
+                    source=str(path))
+    return record
+
+
+def load_calibration(path: Path, design: Design) -> UnitConstants:
+    """The constants of a passed unit's CAL.json made for ``design``'s spec.
+
+    Refuses (``InputError``/``DesignError``, exit status 2) a file for another spec (spec
+    hash), other fixed-point formats, a failed unit, or constants outside the formats.
+    """
+    return read_passed(path, design).constants

@@ -1,0 +1,363 @@
+"""Proof of the fixed-point error against the float64 reference, with a verdict.
+
+``verify_design`` runs the static path over every ADC code (and over the temperature range
+in steps), then a set of dynamic tests through the whole chain, on the bit-exact Python
+model and, when given, on other engines (the compiled C firmware) that must agree with it
+bit for bit. A test passes when its largest error against the float64 reference (realised
+constants) is within the design's proven bound and no node saturated.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import dataclass, field
+
+import numpy as np
+from numpy.typing import NDArray
+from scipy import signal
+
+from hosttool.design.model import run_integer, run_reference, static_integer, static_reference
+from hosttool.design.resolve import Design
+from hosttool.errors import InputError
+
+I64 = NDArray[np.int64]
+#: An engine runs the integer pipeline on (codes, temperatures or None) from reset.
+Engine = Callable[[I64, I64 | None], I64]
+
+#: Amplitude of the mains hum test, as a fraction of the ADC's input range.
+HUM_FRACTION = 0.01
+#: Temperatures of the static path's temperature sweep (besides the reference).
+TEMPERATURE_STEPS = 5
+#: Every this many codes is evaluated at each temperature step (all codes at the reference).
+TEMPERATURE_CODE_STRIDE = 16
+LONG_RUN_MIN = 1_000_000
+STATIC_BINS = 512
+#: Codes evaluated at once by the static pass (bounded memory, cache-friendly).
+STATIC_CHUNK = 1 << 18
+
+
+@dataclass(frozen=True)
+class TestResult:
+    """One dynamic test: error statistics against the reference and the proven bound."""
+
+    name: str
+    description: str
+    samples: int
+    outputs: int
+    max_error_lsb: float
+    rms_error_lsb: float
+    bound_lsb: float
+    sqnr_db: float | None
+    enob_bits: float | None
+    saturations: dict[str, int]
+    peaks: dict[str, int]
+    engines_agree: bool | None          # None when only the Python model ran
+    figures: dict[str, float] = field(default_factory=dict)
+    passed: bool = False
+    trace: tuple[I64, NDArray[np.float64]] | None = None   # (integer, reference), step test
+
+
+@dataclass(frozen=True)
+class StaticResult:
+    """The static path over every code at the reference and over the temperature range."""
+
+    codes: int
+    temperatures_c: tuple[float, ...]
+    max_error_lsb: float
+    mean_abs_error_lsb: float
+    bound_lsb: float
+    saturations: int
+    monotonic: bool
+    engines_agree: bool | None
+    code_bins: NDArray[np.float64]       # bin centres (codes) for the error-against-code plot
+    max_error_by_bin: NDArray[np.float64]
+    error_histogram: tuple[NDArray[np.float64], NDArray[np.float64]]
+    passed: bool
+
+
+@dataclass(frozen=True)
+class Verification:
+    """Everything ``hosttool verify`` found, and its verdict."""
+
+    design: Design
+    static: StaticResult
+    tests: tuple[TestResult, ...]
+    engines: tuple[str, ...]
+    budget_units: float | None           # the spec's error budget, output units
+    budget_used: float | None            # ideal-design error bound / budget
+    seed: int
+    reasons: tuple[str, ...]
+
+    @property
+    def passed(self) -> bool:
+        """The verdict: every test within its bound, engines agree, budget respected."""
+        return not self.reasons
+
+
+def error_budget(design: Design) -> float | None:
+    """The spec's allowed error in output units (calibration.max_error or % of span)."""
+    cal = design.spec.calibration
+    if cal is None:
+        return None
+    budget = design.budget
+    options = []
+    if cal.max_error is not None:
+        options.append(cal.max_error)
+    if cal.max_error_pct_span is not None:
+        options.append(cal.max_error_pct_span / 100 * (budget.range_max - budget.range_min))
+    return min(options) if options else None
+
+
+class _Codes:
+    """Codes for loads in output units, from the design's constants (inverse of the scale)."""
+
+    def __init__(self, design: Design):
+        c = design.constants
+        self.limit = 1 << (design.spec.adc.bits - 1)
+        self.offset_counts = c.offset / 2 ** design.guard_bits
+        self.counts_per_lsb = 1 / (design.scale.realised(c.scale_mul) * 2 ** design.guard_bits)
+        self.res = design.spec.output.resolution
+        self.low = design.budget.range_min
+        self.high = design.budget.range_max
+
+    def of(self, load: NDArray[np.float64] | float) -> I64:
+        counts = np.asarray(load, dtype=np.float64) / self.res * self.counts_per_lsb
+        return np.clip(np.rint(counts + self.offset_counts), -self.limit,
+                       self.limit - 1).astype(np.int64)
+
+
+def _settling_samples(design: Design) -> int:
+    settle = design.filter_report.realised.settling_1lsb_s
+    if not math.isfinite(settle):
+        settle = 0.0
+    return max(64, int(math.ceil(settle * design.spec.adc.data_rate_sps)) * 2)
+
+
+def minimum_samples(design: Design) -> int:
+    """The fewest samples a verification can run with (its longest fixed-length test)."""
+    return max(4 * _settling_samples(design), 4096)
+
+
+def _stimuli(design: Design, samples: int, rng: np.random.Generator
+             ) -> list[tuple[str, str, I64, I64 | None]]:
+    """(name, description, codes, temperatures) of every dynamic test."""
+    codes = _Codes(design)
+    fs = design.spec.adc.data_rate_sps
+    settle = _settling_samples(design)
+    t_ref = design.temperature.reference_centi if design.temperature else None
+    lo, hi = codes.low, codes.high
+    span = hi - lo
+    out: list[tuple[str, str, I64, I64 | None]] = []
+    n = 2 * settle
+    step = np.where(np.arange(n) < settle, 0.0 if lo >= 0 else lo, hi)
+    out.append(("step_full_scale", f"step from {step[0]:g} to {hi:g} {design.spec.sensor.unit}",
+                codes.of(step), None))
+    levels = np.repeat(np.arange(40) * codes.res + 0.5 * (lo + hi), max(settle // 4, 16))
+    out.append(("lsb_steps", "40 steps of one output LSB around mid-range", codes.of(levels),
+                None))
+    ramp = np.linspace(lo, hi, max(samples // 4, n))
+    out.append(("slow_ramp", f"ramp {lo:g} .. {hi:g} over {ramp.size} samples", codes.of(ramp),
+                None))
+    band = design.budget.signal_band_hz
+    t = np.arange(max(samples // 4, n)) / fs
+    sweep = 0.5 * (lo + hi) + 0.45 * span * signal.chirp(t, f0=band / 100, t1=t[-1], f1=band)
+    out.append(("sine_sweep", f"sine sweep {band / 100:.3g} .. {band:.3g} Hz at 90 % of span",
+                codes.of(sweep), None))
+    noise = codes.of(np.full(max(samples // 4, n), 0.5 * (lo + hi))) + np.rint(
+        rng.normal(0.0, design.budget.noise_counts_rms, max(samples // 4, n))).astype(np.int64)
+    out.append(("adc_noise", f"mid-range with Gaussian ADC noise of "
+                f"{design.budget.noise_counts_rms:.3g} counts RMS", noise, None))
+    for i, node in enumerate(design.cascade.nodes):
+        worst = design.cascade.worst_case_codes(i, codes.limit - 1)
+        out.append((f"worst_case_{node.name}", f"+-full-scale pattern that drives {node.name} "
+                    "to its bound", worst, None))
+    for f in (50.0, 60.0):
+        amplitude = HUM_FRACTION * codes.limit
+        tt = np.arange(max(samples // 8, n)) / fs
+        hum = codes.of(np.full(tt.size, 0.5 * (lo + hi))) + np.rint(
+            amplitude * np.sin(2 * np.pi * f * tt)).astype(np.int64)
+        out.append((f"mains_{f:g}hz", f"mid-range plus {f:g} Hz hum of {HUM_FRACTION:.0%} of the "
+                    "ADC range", hum, None))
+    if design.temperature is not None:
+        tc = design.temperature
+        m = max(samples // 8, n)
+        temps = np.linspace(tc.min_centi, tc.max_centi, m).astype(np.int64)
+        out.append(("temperature_ramp", f"75 % load, temperature {tc.min_centi / 100:g} .. "
+                    f"{tc.max_centi / 100:g} C", codes.of(np.full(m, lo + 0.75 * span)), temps))
+    long = rng.integers(-codes.limit, codes.limit, max(samples, LONG_RUN_MIN))
+    out.append(("long_run", f"{long.size} uniformly random codes over the whole ADC range",
+                long, None))
+    if t_ref is not None:
+        out = [(a, b, c, d if d is not None else np.full(c.size, t_ref, dtype=np.int64))
+               for a, b, c, d in out]
+    return out
+
+
+def _sqnr(reference: NDArray[np.float64], error: NDArray[np.float64]) -> float | None:
+    signal_power = float(np.mean((reference - reference.mean()) ** 2))
+    noise_power = float(np.mean(error ** 2))
+    if signal_power == 0 or noise_power == 0:
+        return None
+    return 10 * math.log10(signal_power / noise_power)
+
+
+def _settled_after(values: I64, start: int, band: float) -> int | None:
+    """Samples after ``start`` until ``values`` stay within ``band`` of their final value."""
+    final = values[-1]
+    outside = np.nonzero(np.abs(values[start:] - final) > band)[0]
+    return 0 if outside.size == 0 else int(outside[-1]) + 1
+
+
+def _dynamic(design: Design, name: str, description: str, codes: I64, temps: I64 | None,
+             engines: dict[str, Engine]) -> TestResult:
+    run = run_integer(design, codes, temps)
+    ref = run_reference(design, codes, temps)
+    err = run.output - ref
+    agree = None
+    for engine in engines.values():
+        same = np.array_equal(engine(codes, temps), run.output)
+        agree = same if agree is None else (agree and same)
+    sqnr = _sqnr(ref, err)
+    figures: dict[str, float] = {}
+    trace = None
+    if name == "step_full_scale":
+        trace = (run.output, ref)
+        d = design.decimation
+        start = (codes.size // 2) // d
+        figures["step_output_index"] = float(start)
+        settled = _settled_after(run.output, start, 1.0 + design.error_bound_lsb)
+        if settled is not None:
+            figures["settling_measured_s"] = settled / design.output_rate_hz
+        figures["settling_designed_s"] = design.filter_report.realised.settling_1lsb_s
+    if name == "adc_noise":
+        tail = run.output[run.output.size // 4:]
+        figures["output_noise_rms_lsb"] = float(np.std(tail))
+        figures["output_noise_predicted_lsb"] = design.output_noise_rms_lsb
+    if name.startswith("mains_"):
+        tail = run.output[run.output.size // 2:]
+        figures["hum_residual_pp_lsb"] = float(tail.max() - tail.min())
+    max_err = float(np.max(np.abs(err))) if err.size else 0.0
+    bound = design.error_bound_lsb
+    passed = max_err <= bound and sum(run.saturations.values()) == 0 and agree is not False
+    return TestResult(
+        name=name, description=description, samples=int(codes.size), outputs=int(err.size),
+        max_error_lsb=max_err, rms_error_lsb=float(np.sqrt(np.mean(err ** 2))) if err.size else 0,
+        bound_lsb=bound, sqnr_db=sqnr,
+        enob_bits=None if sqnr is None else (sqnr - 1.76) / 6.02,
+        saturations=dict(run.saturations), peaks=dict(run.peaks), engines_agree=agree,
+        figures=figures, passed=passed, trace=trace)
+
+
+def _static(design: Design, engines: dict[str, Engine]) -> StaticResult:
+    limit = 1 << (design.spec.adc.bits - 1)
+    codes = np.arange(-limit, limit, dtype=np.int64)
+    tc = design.temperature
+    sweeps: list[tuple[I64, I64 | None]] = []
+    temps_c: list[float] = []
+    if tc is None:
+        sweeps.append((codes, None))
+    else:
+        sweeps.append((codes, np.full(codes.size, tc.reference_centi, dtype=np.int64)))
+        temps_c.append(tc.reference_centi / 100)
+        strided = codes[::TEMPERATURE_CODE_STRIDE]
+        for t in np.linspace(tc.min_centi, tc.max_centi, TEMPERATURE_STEPS):
+            sweeps.append((strided, np.full(strided.size, int(round(t)), dtype=np.int64)))
+            temps_c.append(round(t) / 100)
+    bound = design.static_error_bound_lsb
+    max_err, abs_sum, count, saturations = 0.0, 0.0, 0, 0
+    monotonic, agree = True, None
+    sign = 1 if design.constants.scale_mul >= 0 else -1
+    bins = np.linspace(-limit, limit, STATIC_BINS + 1)
+    by_bin = np.zeros(STATIC_BINS)
+    hist_edges = np.linspace(-bound, bound, 41)
+    hist = np.zeros(40)
+    for i, (x_all, t_all) in enumerate(sweeps):
+        previous = None
+        for start in range(0, x_all.size, STATIC_CHUNK):
+            x = x_all[start:start + STATIC_CHUNK]
+            t = None if t_all is None else t_all[start:start + STATIC_CHUNK]
+            run = static_integer(design, x, t)
+            err = run.output - static_reference(design, x, t)
+            abs_err = np.abs(err)
+            max_err = max(max_err, float(abs_err.max()))
+            abs_sum += float(abs_err.sum())
+            count += err.size
+            saturations += sum(run.saturations.values())
+            joined = run.output if previous is None else np.concatenate(([previous], run.output))
+            monotonic &= bool(np.all(np.diff(joined) * sign >= 0))
+            previous = run.output[-1]
+            if i == 0:
+                # chunks start on bin edges and hold whole bins (both are powers of two)
+                per_bin = max(1, (2 * limit) // STATIC_BINS)
+                first = (start * STATIC_BINS) // (2 * limit)
+                maxima = abs_err.reshape(-1, per_bin).max(axis=1)
+                by_bin[first:first + maxima.size] = maxima
+                # uniform bins: index arithmetic instead of np.histogram's sort
+                width = hist_edges[1] - hist_edges[0]
+                idx = np.minimum(((np.clip(err, -bound, bound) + bound) / width).astype(np.int64),
+                                 hist.size - 1)
+                hist += np.bincount(idx, minlength=hist.size)
+            for engine in engines.values():
+                same = np.array_equal(engine(x, t), run.output)
+                agree = same if agree is None else (agree and same)
+    passed = max_err <= bound and saturations == 0 and monotonic and agree is not False
+    return StaticResult(
+        codes=int(codes.size), temperatures_c=tuple(temps_c), max_error_lsb=max_err,
+        mean_abs_error_lsb=abs_sum / count, bound_lsb=bound, saturations=saturations,
+        monotonic=monotonic, engines_agree=agree, code_bins=0.5 * (bins[1:] + bins[:-1]),
+        max_error_by_bin=by_bin, error_histogram=(hist_edges, hist), passed=passed)
+
+
+def verify_design(design: Design, *, samples: int = LONG_RUN_MIN, seed: int = 0,
+                  engines: dict[str, Engine] | None = None,
+                  static_engines: bool = False) -> Verification:
+    """Run every check; ``engines`` (by name) must match the Python model bit for bit.
+
+    ``static_engines``: also run the exhaustive static path through the other engines.
+    """
+    need = minimum_samples(design)
+    if samples < need:
+        raise InputError(f"--samples: {samples} is fewer than the {need} samples the step "
+                         "and settling tests of this design need")
+    engines = engines or {}
+    rng = np.random.default_rng(seed)
+    static = _static(design, engines if static_engines else {})
+    tests = tuple(_dynamic(design, name, text, codes, temps, engines)
+                  for name, text, codes, temps in _stimuli(design, samples, rng))
+    budget = error_budget(design)
+    used = None
+    reasons: list[str] = []
+    if budget is not None:
+        used = design.ideal_error_bound_lsb * design.spec.output.resolution / budget
+        if used > 1:
+            reasons.append(f"the arithmetic alone may err by "
+                           f"{design.ideal_error_bound_lsb * design.spec.output.resolution:.4g} "
+                           f"{design.spec.sensor.unit}, more than the budget {budget:g}")
+    if not static.passed:
+        reasons.append(_static_reason(static))
+    for test in tests:
+        if not test.passed:
+            reasons.append(_test_reason(test))
+    return Verification(design=design, static=static, tests=tests,
+                        engines=("python", *engines), budget_units=budget, budget_used=used,
+                        seed=seed, reasons=tuple(reasons))
+
+
+def _static_reason(s: StaticResult) -> str:
+    if s.engines_agree is False:
+        return "static path: the engines disagree"
+    if s.saturations:
+        return f"static path: {s.saturations} saturations"
+    if not s.monotonic:
+        return "static path: output not monotonic in the code"
+    return f"static path: error {s.max_error_lsb:.4g} LSB above the bound {s.bound_lsb:.4g}"
+
+
+def _test_reason(t: TestResult) -> str:
+    if t.engines_agree is False:
+        return f"{t.name}: the engines disagree"
+    if sum(t.saturations.values()):
+        nodes = ", ".join(k for k, v in t.saturations.items() if v)
+        return f"{t.name}: saturation at {nodes}"
+    return f"{t.name}: error {t.max_error_lsb:.4g} LSB above the bound {t.bound_lsb:.4g}"
