@@ -1,4 +1,9 @@
-"""The command line: parse, call one function, print. Errors become one line and exit 2."""
+"""The command line: parse, call one function, print. Errors become one line and exit 2.
+
+Each command imports its module of hosttool.commands inside its function, on purpose: the
+heavy imports (numpy, scipy, numba, matplotlib) are paid only by the commands that use them,
+and ``--help`` or ``--version`` pays none.
+"""
 
 from __future__ import annotations
 
@@ -57,12 +62,11 @@ def main(debug: bool) -> None:
 @guarded
 def check(spec: Path, as_json: bool) -> None:
     """Validate SPEC and print the sensor/ADC budget."""
-    from hosttool.design.budget import budget_text, compute_budget
-    from hosttool.spec.schema import load_spec
+    from hosttool.commands.check import budget_json, budget_text, run_check
 
-    budget = compute_budget(load_spec(spec))
+    budget = run_check(spec)
     if as_json:
-        _emit_json(budget.to_json())
+        _emit_json(budget_json(budget))
     else:
         click.echo(budget_text(budget, with_warnings=False), nl=False)
     _warn(budget.warnings)
@@ -121,7 +125,7 @@ def verify(spec: Path, calibration: Path | None, samples: int, seed: int, engine
 @guarded
 def render(spec: Path, folder: Path, calibration: Path | None, force: bool) -> None:
     """Write the C headers of SPEC (design and calibration block) into a folder."""
-    from hosttool.codegen.render import render_spec
+    from hosttool.commands.render import render_spec
 
     for path, changed in render_spec(spec, folder, calibration=calibration, force=force):
         click.echo(f"{'wrote' if changed else 'unchanged'} {path}")

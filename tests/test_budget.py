@@ -16,6 +16,7 @@ import numpy as np
 import pytest
 import scipy.signal
 
+from hosttool.commands.check import budget_json
 from hosttool.design.budget import compute_budget
 from hosttool.errors import DesignError
 from hosttool.spec.schema import parse_spec
@@ -325,7 +326,7 @@ def test_bundled_examples_budget(name):
 
 def test_json_keys_and_types():
     b = compute_budget(parse_spec(TENSION, "tension.toml"))
-    data = b.to_json()
+    data = budget_json(b)
     assert data["kind"] == "budget" and data["tool_version"]
     assert data["pga_gain"] == 64 and isinstance(data["pga_gain"], int)
     assert isinstance(data["mains"], list) and isinstance(data["mains"][0]["alias_band_hz"], list)

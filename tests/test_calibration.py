@@ -1,9 +1,9 @@
 """Per-unit calibration: recovery of invented units, checks against numpy.polyfit, OIML R 76-1,
 refusals of bad readings with one clear line, CAL.json round trip.
 
-Every synthetic reading comes from hosttool.production.synthetic_lot (the spec's own bridge and ADC model
-with a known zero, span, bow, hysteresis, temperature coefficients and noise); the numbers
-are invented.
+Every synthetic reading comes from hosttool.production.synthetic_lot (the spec's own
+bridge and ADC model with a known zero, span, bow, hysteresis, temperature coefficients
+and noise); the numbers are invented.
 """
 
 from __future__ import annotations
@@ -21,9 +21,10 @@ from hosttool.cli import main
 from hosttool.design.model import run_integer, static_integer
 from hosttool.design.resolve import LIN_FRAC, make_design
 from hosttool.errors import InputError
+from hosttool.formats.caljson import load_calibration
 from hosttool.formats.readings import parse_readings
 from hosttool.physics.oiml import mpe_intervals
-from hosttool.production.fit import Context, calibrate_unit, load_calibration
+from hosttool.production.fit import Context, calibrate_unit
 from hosttool.production.synthetic_lot import Plan, UnitTruth, lot_csv
 from hosttool.spec.schema import parse_spec
 

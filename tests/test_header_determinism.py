@@ -79,7 +79,8 @@ def test_headers_do_not_move_with_float_noise(name: str, ulps: int) -> None:
 
 
 _RENDER = ("import sys; from hosttool.design.resolve import make_design; "
-           "from hosttool.codegen.render import render_headers; from hosttool.spec.schema import load_spec; "
+           "from hosttool.codegen.render import render_headers; "
+           "from hosttool.spec.schema import load_spec; "
            "sys.stdout.write(''.join(h.text for h in "
            "render_headers(make_design(load_spec(sys.argv[1])))))")
 

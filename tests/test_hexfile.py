@@ -25,9 +25,9 @@ from hosttool.errors import InputError
 from hosttool.firmware import build as cbuild
 from hosttool.formats import calblock
 from hosttool.formats.calblock import BLOCK_SIZE, decode, encode
-from hosttool.formats.readings import parse_time_utc
 from hosttool.production.synthetic_lot import UnitTruth, lot_csv
 from hosttool.spec.schema import parse_spec
+from hosttool.util.utctime import parse_time_utc
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 SPEC = EXAMPLES / "hive_scale.toml"

@@ -181,8 +181,8 @@ def _node_bound(bound: float, word: int) -> tuple[str, str]:
 def proof_context(d: Design) -> dict[str, Any]:
     """The proof figures of the header comment, each rounded to a grid fixed by its unit.
 
-    Node bounds as ``_node_bound`` prints them, errors in output LSB to ERROR_PLACES decimals: the text does not depend on the last
-    bits of the float analysis.
+    Node bounds as ``_node_bound`` prints them, errors in output LSB to ERROR_PLACES
+    decimals: the text does not depend on the last bits of the float analysis.
     """
     nodes = [dict(zip(("bound", "headroom"), _node_bound(n.bound, n.word), strict=True))
              | {"name": n.name, "word": n.word} for n in d.all_nodes]

@@ -20,9 +20,8 @@ import jinja2
 from hosttool import __version__
 from hosttool.codegen.context import calblock_context, design_context
 from hosttool.codegen.csyntax import c_hex32, c_identifier, c_int, c_prefix, c_string, comment_text
-from hosttool.design.resolve import Design, make_design
+from hosttool.design.resolve import Design
 from hosttool.errors import OutputError
-from hosttool.spec.schema import load_spec
 from hosttool.util.atomic import write_atomic
 from hosttool.util.resources import templates
 
@@ -160,23 +159,3 @@ def write_headers(headers: tuple[Header, ...], folder: Path, *,
                 write_atomic(path, old)
         raise
     return results
-
-
-def render_spec(spec_path: Path, folder: Path, *, calibration: Path | None = None,
-                force: bool = False) -> list[tuple[Path, bool]]:
-    """``hosttool render``: the headers of a spec file into ``folder``.
-
-    With ``calibration`` (a passed unit's CAL.json for this spec), that unit's constants
-    become the compiled-in defaults and the banner names the unit.
-    """
-    design = make_design(load_spec(spec_path))
-    note = None
-    if calibration is not None:
-        from hosttool.formats.readings import format_time_utc
-        from hosttool.production.fit import read_passed
-
-        record = read_passed(calibration, design)
-        design = design.with_constants(record.constants)
-        note = (f"constants of unit {record.serial}, calibrated "
-                f"{format_time_utc(record.cal_time_utc)} ({calibration.name})")
-    return write_headers(render_headers(design, constants_note=note), folder, force=force)

@@ -1,5 +1,6 @@
 """``hosttool demo``: the whole flow that exists so far, on a bundled example, into a folder."""
 
+
 from __future__ import annotations
 
 import json
@@ -8,17 +9,62 @@ from pathlib import Path
 
 import numpy as np
 
-from hosttool.commands.demo_lot import run_lot
+from hosttool.codegen.render import render_headers, write_headers
+from hosttool.commands.check import budget_json, budget_text
 from hosttool.commands.design import design_json, design_text
-from hosttool.commands.verify_text import verify_text
-from hosttool.design.budget import budget_text, compute_budget
+from hosttool.commands.image import run_inspect
+from hosttool.commands.verify import verify_text
+from hosttool.design.budget import compute_budget
+from hosttool.design.model import run_integer
 from hosttool.design.resolve import Design, make_design
 from hosttool.errors import OutputError
+from hosttool.firmware import build as cbuild
+from hosttool.firmware.run import build_runner, demo_vectors, run_runner
+from hosttool.production.batch import run_batch
+from hosttool.production.synthetic_lot import UnitTruth, lot_csv, random_truth
 from hosttool.spec.schema import parse_spec
 from hosttool.util.atomic import write_atomic
 from hosttool.util.resources import example_text
 from hosttool.verify.proof import LONG_RUN_MIN, verify_design
 from hosttool.verify.report import write_report
+
+#: Units in the demo lot; the one at FAILING is made with too much span error.
+LOT_SIZE = 8
+FAILING = 5
+#: 2025-03-04T08:00:00Z, when the invented lot was "measured".
+START_UTC = 1_741_075_200
+
+
+def run_lot(design: Design, spec_path: Path, folder: Path) -> Iterator[str]:
+    """Simulate a lot, run the batch into ``folder/lot``, inspect the first image."""
+    assert design.spec.calibration is not None
+    lot = folder / "lot"
+    images = lot / "images"
+    try:
+        images.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OutputError(f"{images}: cannot create: {exc.strerror}") from None
+    prefix = design.spec.name[:2].upper()
+    rng = np.random.default_rng(0)
+    truths = [random_truth(f"{prefix}-{i:04d}", rng) for i in range(LOT_SIZE)]
+    too_far = 1.5 * design.spec.calibration.span_tolerance_pct
+    truths[FAILING] = UnitTruth(truths[FAILING].serial, span_error_pct=too_far)
+    readings = write_atomic(lot / "readings.csv",
+                            lot_csv(design, truths, seed=1, start_utc=START_UTC))
+    yield (f"lot     {readings}  ({LOT_SIZE} invented units, synthetic readings; "
+           f"{truths[FAILING].serial} made {too_far:g} % off span to fail)")
+    summary = run_batch(spec_path, readings, out=images, db=lot / "production.sqlite",
+                        station="demo", recalibrate=False, cal_time=None)
+    passed = [o for o in summary.outcomes if o.status == "pass"]
+    failed = [o for o in summary.outcomes if o.status != "pass"]
+    yield (f"batch   {images}, {lot / 'production.sqlite'}  ({len(passed)} passed, "
+           f"{len(failed)} failed: " + "; ".join(f"{o.serial}: {o.reason}" for o in failed)
+           + ")")
+    first = images / str(passed[0].hex_file)
+    data, text = run_inspect(spec_path, first, as_json=False)
+    write_atomic(lot / "inspect.txt", text)
+    yield (f"inspect {lot / 'inspect.txt'}  ({first.name}: serial {data['serial']}, CRC-32 "
+           f"{data['crc32']} ok, spec hash matches)")
 
 
 def _new_folder(base: Path) -> Path:
@@ -44,7 +90,7 @@ def run_demo(folder: Path | None, example: str) -> Iterator[str]:
 
     budget = compute_budget(spec)
     write_atomic(folder / "budget.txt", budget_text(budget))
-    write_atomic(folder / "budget.json", json.dumps(budget.to_json(), indent=2) + "\n")
+    write_atomic(folder / "budget.json", json.dumps(budget_json(budget), indent=2) + "\n")
     yield (f"check   {folder / 'budget.txt'}, budget.json  (PGA {budget.pga_gain}, "
            f"{budget.range_used_pct:.1f} % of range, {budget.noise_free_bits:.1f} noise-free "
            f"bits, {len(budget.warnings)} warnings)")
@@ -67,10 +113,6 @@ def run_demo(folder: Path | None, example: str) -> Iterator[str]:
 
 def _firmware(design: Design, folder: Path) -> Iterator[str]:
     """Render the headers; where gcc is present, run the host runner against the model."""
-    from hosttool.codegen.render import render_headers, write_headers
-    from hosttool.design.model import run_integer
-    from hosttool.firmware import build as cbuild
-    from hosttool.firmware.run import build_runner, demo_vectors, run_runner
 
     include = folder / "include"
     include.mkdir(exist_ok=True)

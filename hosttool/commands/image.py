@@ -5,7 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any
 
-from hosttool.commands.calibrate_table import columns, constant_rows
+from hosttool.commands.calibrate import columns, constant_rows
 from hosttool.design.resolve import Design, UnitConstants, check_constants, make_design
 from hosttool.errors import InputError
 from hosttool.formats.calblock import (
@@ -16,7 +16,7 @@ from hosttool.formats.calblock import (
     decode,
     encode,
 )
-from hosttool.formats.caljson import constants_json
+from hosttool.formats.caljson import constants_json, read_passed
 from hosttool.formats.hexfile import (
     ERASED,
     block_area,
@@ -26,10 +26,9 @@ from hosttool.formats.hexfile import (
     read_area,
     read_hex,
 )
-from hosttool.formats.readings import format_time_utc
-from hosttool.production.fit import read_passed
 from hosttool.spec.schema import load_spec
 from hosttool.util.atomic import write_atomic
+from hosttool.util.utctime import format_time_utc
 
 
 def image_bytes(design: Design, block: bytes, *, as_bin: bool, merge: Path | None) -> bytes:

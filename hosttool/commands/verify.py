@@ -1,16 +1,96 @@
 """``hosttool verify``: load, choose engines, verify, write the report; one call for the CLI."""
 
+
 from __future__ import annotations
 
 import json
 import os
 from pathlib import Path
+from typing import Any
 
-from hosttool.commands.verify_text import verify_json, verify_text
+from hosttool import __version__
 from hosttool.design.resolve import Design, make_design
 from hosttool.errors import InputError, OutputError
+from hosttool.formats.caljson import load_calibration
 from hosttool.spec.schema import load_spec
+from hosttool.util.tables import Row, sections, table
 from hosttool.verify.proof import Engine, Verification, verify_design
+
+
+def _fmt(value: float | None, digits: int = 4) -> str:
+    return "-" if value is None else f"{value:.{digits}g}"
+
+
+def verify_json(v: Verification) -> dict[str, Any]:
+    """The stable JSON object of ``hosttool verify --json`` (keys documented in the README)."""
+    d = v.design
+    s = v.static
+    return {
+        "tool_version": __version__, "kind": "verification",
+        "spec_name": d.spec.name, "spec_sha256": d.spec.sha256,
+        "passed": v.passed, "reasons": list(v.reasons), "engines": list(v.engines),
+        "seed": v.seed, "output_lsb": d.spec.output.resolution, "unit": d.spec.sensor.unit,
+        "error_bound_lsb": d.error_bound_lsb, "error_rms_predicted_lsb": d.error_rms_lsb,
+        "ideal_error_bound_lsb": d.ideal_error_bound_lsb,
+        "budget": v.budget_units, "budget_used": v.budget_used,
+        "static": {"codes": s.codes, "temperatures_c": list(s.temperatures_c),
+                   "max_error_lsb": s.max_error_lsb, "mean_abs_error_lsb": s.mean_abs_error_lsb,
+                   "bound_lsb": s.bound_lsb, "saturations": s.saturations,
+                   "monotonic": s.monotonic, "engines_agree": s.engines_agree,
+                   "passed": s.passed},
+        "tests": [{"name": t.name, "description": t.description, "samples": t.samples,
+                   "outputs": t.outputs, "max_error_lsb": t.max_error_lsb,
+                   "rms_error_lsb": t.rms_error_lsb,
+                   "max_error": t.max_error_lsb * d.spec.output.resolution,
+                   "rms_error": t.rms_error_lsb * d.spec.output.resolution,
+                   "bound_lsb": t.bound_lsb, "sqnr_db": t.sqnr_db, "enob_bits": t.enob_bits,
+                   "saturations": t.saturations, "peaks": t.peaks,
+                   "engines_agree": t.engines_agree, "figures": t.figures,
+                   "passed": t.passed} for t in v.tests],
+        "headroom": [{"name": n.name, "bound": n.bound, "word": n.word,
+                      "headroom_bits": n.headroom_bits} for n in d.all_nodes],
+    }
+
+
+def verify_text(v: Verification) -> str:
+    """The verdict and one row per test."""
+    d = v.design
+    unit, lsb = d.spec.sensor.unit, d.spec.output.resolution
+    s = v.static
+    temps = ", ".join(f"{t:g}" for t in s.temperatures_c) or "none"
+    static_rows: list[Row] = [
+        ("codes", f"{s.codes}", f"every code; temperatures (C): {temps}"),
+        ("max error", f"{s.max_error_lsb:.4g} LSB", f"bound {s.bound_lsb:.4g} LSB"),
+        ("mean |error|", f"{s.mean_abs_error_lsb:.4g} LSB", ""),
+        ("saturations", f"{s.saturations}", ""),
+        ("monotonic", "yes" if s.monotonic else "NO", ""),
+        ("verdict", "pass" if s.passed else "FAIL", ""),
+    ]
+    test_rows: list[Row] = []
+    for t in v.tests:
+        agree = "" if t.engines_agree is None else (
+            ", engines agree" if t.engines_agree else ", ENGINES DIFFER")
+        sat = sum(t.saturations.values())
+        extra = "".join(f", {k} {val:.4g}" for k, val in t.figures.items()
+                        if k != "step_output_index")
+        test_rows.append((t.name, f"{t.max_error_lsb:.4g} / {t.bound_lsb:.4g} LSB",
+                          f"{'pass' if t.passed else 'FAIL'}; RMS {t.rms_error_lsb:.3g} LSB, "
+                          f"SQNR {_fmt(t.sqnr_db, 4)} dB, {t.outputs} outputs, "
+                          f"{sat} saturations{agree}{extra}"))
+    summary: list[Row] = [
+        ("engines", ", ".join(v.engines), "must agree bit for bit"),
+        ("proven bound", f"{d.error_bound_lsb:.4g} LSB", f"= {d.error_bound_lsb * lsb:.4g} {unit}"),
+        ("against the ideal design", f"{d.ideal_error_bound_lsb:.4g} LSB",
+         f"= {d.ideal_error_bound_lsb * lsb:.4g} {unit}"),
+        ("error budget", "-" if v.budget_units is None else f"{v.budget_units:g} {unit}",
+         "" if v.budget_used is None else f"{v.budget_used:.1%} used by the arithmetic"),
+        ("VERDICT", "PASS" if v.passed else "FAIL", "; ".join(v.reasons)),
+    ]
+    return sections([f"{d.spec.name}: verification (seed {v.seed})",
+                     table("Static path, exhaustive", static_rows),
+                     table("Dynamic tests (max error / proven bound)", test_rows),
+                     table("Verdict", summary)])
+
 
 ENGINES = ("python", "c", "both")
 
@@ -20,7 +100,7 @@ def _engines(design: Design, engine: str) -> dict[str, Engine]:
         raise InputError(f"--engine: {engine!r} is not one of {', '.join(ENGINES)}")
     if engine == "python":
         return {}
-    from hosttool.firmware.compiled_model import host_engine
+    from hosttool.firmware.compiled_model import host_engine  # deferred: only with a C engine
 
     return {"c": host_engine(design)}
 
@@ -40,13 +120,11 @@ def run_verify(spec_path: Path, *, calibration: Path | None, samples: int, seed:
         _check_report_path(report)
     design = make_design(load_spec(spec_path))
     if calibration is not None:
-        from hosttool.production.fit import load_calibration
-
         design = design.with_constants(load_calibration(calibration, design))
     engines = _engines(design, engine)
     verification = verify_design(design, samples=samples, seed=seed, engines=engines)
     if report is not None:
-        from hosttool.verify.report import write_report
+        from hosttool.verify.report import write_report  # deferred: matplotlib, only for --report
 
         write_report(verification, report)
     text = (json.dumps(verify_json(verification), indent=2) + "\n" if as_json

@@ -7,11 +7,10 @@ gives the stable JSON object of ``hosttool check --json`` (keys documented in th
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass, replace
+from dataclasses import dataclass, replace
 
 import numpy as np
 
-from hosttool import __version__
 from hosttool.errors import DesignError
 from hosttool.physics.adc import (
     PEAK_TO_PEAK_OVER_RMS,
@@ -23,7 +22,6 @@ from hosttool.physics.adc import (
 )
 from hosttool.physics.bridge import bridge_of, lead_desensitisation
 from hosttool.spec.schema import Spec
-from hosttool.util.tables import Row, num, sections, table
 
 MAINS_HZ = (50.0, 60.0)
 #: Mains frequency may wander +-1 % (EN 50160 limit for 99.5 % of a year on
@@ -88,13 +86,6 @@ class Budget:
     signal_band_hz: float
     mains: tuple[MainsLine, ...]
     warnings: tuple[str, ...]
-
-    def to_json(self) -> dict[str, object]:
-        """The stable JSON object of ``hosttool check --json``."""
-        data = asdict(self)
-        data["mains"] = [asdict(m) | {"alias_band_hz": list(m.alias_band_hz)} for m in self.mains]
-        data["warnings"] = list(self.warnings)
-        return {"tool_version": __version__, "kind": "budget", **data}
 
     def converter(self, bits: int) -> Converter:
         """The ADC at the chosen gain."""
@@ -220,48 +211,3 @@ def _with_warnings(b: Budget) -> Budget:
                             f"inside the {b.signal_band_hz:g} Hz signal band, with only "
                             f"{m.worst_rejection_db:.1f} dB of sinc rejection")
     return replace(b, warnings=tuple(warnings))
-
-
-def budget_text(b: Budget, *, with_warnings: bool = True) -> str:
-    """The budget as the readable tables of ``hosttool check`` (warnings last, if asked)."""
-    u = b.unit
-    sensor_rows: list[Row] = [
-        ("measuring range", f"{num(b.range_min)} .. {num(b.range_max)} {u}", ""),
-        ("output step", f"{num(b.resolution)} {u}", f"{b.requested_divisions:,.0f} steps"),
-        ("bridge resistance", f"{num(b.bridge_resistance_ohm)} ohm", ""),
-        ("excitation", f"{num(b.excitation_v)} V",
-         f"{num(b.excitation_current_ma, 4)} mA, {num(b.excitation_power_mw, 4)} mW"),
-        ("full-scale output", f"{num(b.full_scale_mv_per_v)} mV/V",
-         f"{num(b.full_scale_output_mv)} mV"),
-        ("zero offset (worst)", f"{num(b.zero_offset_mv_per_v)} mV/V", ""),
-        ("sensitivity", f"{num(b.sensitivity_uv_per_v_per_unit)} uV/V per {u}", ""),
-        ("bridge nonlinearity", f"{num(b.nonlinearity_pct_fs, 4)} % FS", "exact vs tangent"),
-        ("lead desensitisation", f"{b.lead_desensitisation:.6f}", "sensitivity factor"),
-    ]
-    adc_rows: list[Row] = [
-        ("PGA gain", f"{b.pga_gain}", "chosen (auto)" if b.pga_auto else "from spec"),
-        ("input range", f"+-{num(b.input_range_mv)} mV", f"1 LSB = {num(b.lsb_nv)} nV"),
-        ("peak input", f"{num(b.peak_input_mv)} mV", f"{b.range_used_pct:.1f} % of range"),
-        ("counts per unit", f"{num(b.counts_per_unit)} /{u}",
-         f"{num(b.counts_per_lsb)} per output step"),
-        ("noise", f"{num(b.noise_counts_rms, 4)} counts RMS",
-         f"{b.effective_bits:.2f} effective bits"),
-        ("noise-free", f"{b.noise_free_bits:.2f} bits",
-         f"{num(b.noise_free_counts, 4)} counts p-p (6.6 x RMS)"),
-        ("noise-free resolution", f"{num(b.noise_free_resolution, 4)} {u}",
-         f"{b.noise_free_divisions:,.0f} divisions over the span"),
-    ]
-    mains_rows: list[Row] = []
-    for m in b.mains:
-        notch = "at a sinc notch" if m.rejection_db >= 300 else f"{m.rejection_db:.1f} dB"
-        mains_rows.append((f"{m.frequency_hz:g} Hz", notch,
-                           f"worst {m.worst_rejection_db:.1f} dB within +-1 %, lands at "
-                           f"{m.alias_band_hz[0]:.3g}..{m.alias_band_hz[1]:.3g} Hz"
-                           + (" (in band)" if m.in_band else "")))
-    mains_rows.append(("signal band", f"0 .. {num(b.signal_band_hz)} Hz", ""))
-    parts = [f"{b.spec_name}: sensor and ADC budget",
-             table("Bridge", sensor_rows), table("ADC", adc_rows),
-             table("Mains through the ADC's sinc filter", mains_rows)]
-    if with_warnings and b.warnings:
-        parts.append("\n".join(f"warning: {w}" for w in b.warnings))
-    return sections(parts)

@@ -13,15 +13,12 @@ from __future__ import annotations
 import json
 from dataclasses import dataclass
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
-from hosttool import __version__
-from hosttool.design.resolve import Design, UnitConstants
+from hosttool.design.resolve import Design, UnitConstants, check_constants
 from hosttool.errors import InputError
-from hosttool.formats.readings import SERIAL_RE, format_time_utc, parse_time_utc
-
-if TYPE_CHECKING:
-    from hosttool.production.fit import UnitCalibration
+from hosttool.formats.readings import SERIAL_RE
+from hosttool.util.utctime import parse_time_utc
 
 FORMAT = "hosttool-calibration"
 FORMAT_VERSION = 1
@@ -57,31 +54,6 @@ def constants_json(c: UnitConstants) -> dict[str, Any]:
     """The constants as a JSON object (integers)."""
     return {"offset": c.offset, "scale_mul": c.scale_mul, "lin": list(c.lin),
             "tc_zero": c.tc_zero, "tc_span": c.tc_span}
-
-
-def calibration_json(result: UnitCalibration, design: Design, *, readings_file: str,
-                     readings_sha256: str) -> dict[str, Any]:
-    """The CAL.json object of one unit."""
-    spec = design.spec
-    return {
-        "format": FORMAT, "format_version": FORMAT_VERSION, "tool_version": __version__,
-        "spec": {"name": spec.name, "sha256": spec.sha256},
-        "serial": result.serial, "cal_time_utc": format_time_utc(result.cal_time_utc),
-        "readings": {"file": readings_file, "sha256": readings_sha256},
-        "unit": spec.sensor.unit, "formats": formats(design),
-        "constants": constants_json(result.constants),
-        "verdict": result.verdict, "reasons": list(result.reasons),
-        "criteria": [{"key": c.key, "label": c.label, "value": c.value, "limit": c.limit,
-                      "unit": c.unit, "source": c.source, "pass": c.passed}
-                     for c in result.criteria],
-        "figures": result.figures,
-        "rounding": [{"constant": r.constant, "integer": r.integer, "exact": r.exact,
-                      "adds": r.adds} for r in result.rounding],
-        "points": [{"line": p.line, "reference": p.reference, "temperature_c": p.temperature_c,
-                    "direction": "up" if p.up else "down", "output": p.output,
-                    "error": p.error, "linearity": p.linearity} for p in result.points],
-        "cautions": list(CAUTIONS),
-    }
 
 
 def _get(data: dict[str, Any], key: str, kind: type | tuple[type, ...], where: str) -> Any:
@@ -144,3 +116,25 @@ def read_calfile(path: Path, design: Design) -> CalRecord:
         raise InputError(f"{where}: verdict: {verdict!r} is not 'pass' or 'fail'")
     return CalRecord(serial=serial, cal_time_utc=cal_time, constants=constants,
                      verdict=verdict)
+
+
+def read_passed(path: Path, design: Design) -> CalRecord:
+    """A CAL.json for ``design``'s spec whose unit passed, its constants checked against the
+    design's formats; anything else is refused (exit status 2)."""
+    record = read_calfile(path, design)
+    if record.verdict != "pass":
+        raise InputError(f"{path}: verdict: the unit {record.serial} failed its limits; its "
+                         "constants must not go into a unit")
+    check_constants(record.constants, bits=design.spec.adc.bits, g=design.guard_bits,
+                    scale=design.scale, lin=design.linearisation, temp=design.temperature,
+                    source=str(path))
+    return record
+
+
+def load_calibration(path: Path, design: Design) -> UnitConstants:
+    """The constants of a passed unit's CAL.json made for ``design``'s spec.
+
+    Refuses (``InputError``/``DesignError``, exit status 2) a file for another spec (spec
+    hash), other fixed-point formats, a failed unit, or constants outside the formats.
+    """
+    return read_passed(path, design).constants

@@ -25,7 +25,6 @@ import hashlib
 import math
 import re
 from dataclasses import dataclass
-from datetime import UTC, datetime
 from pathlib import Path
 
 import numpy as np
@@ -33,6 +32,7 @@ from numpy.typing import NDArray
 
 from hosttool.errors import InputError
 from hosttool.spec.schema import Spec
+from hosttool.util.utctime import parse_time_utc
 
 SERIAL_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]{0,15}$")
 DIRECTIONS = ("up", "down")
@@ -73,25 +73,6 @@ class ReadingsFile:
     source: str
     sha256: str
     units: dict[str, UnitReadings]
-
-
-def parse_time_utc(text: str, where: str) -> int:
-    """ISO 8601 with an explicit UTC offset (Z or +00:00) to whole seconds since 1970."""
-    try:
-        stamp = datetime.fromisoformat(text.strip())
-    except ValueError:
-        raise InputError(f"{where}: {text!r} is not an ISO 8601 time such as "
-                         "2025-03-04T08:15:00Z") from None
-    if stamp.tzinfo is None or stamp.utcoffset() != UTC.utcoffset(None):
-        raise InputError(f"{where}: {text!r} must be in UTC (end it with Z)")
-    if stamp.microsecond:
-        raise InputError(f"{where}: {text!r}: give whole seconds")
-    return int(stamp.timestamp())
-
-
-def format_time_utc(seconds: int) -> str:
-    """Seconds since 1970 UTC as ISO 8601 ending in Z."""
-    return datetime.fromtimestamp(seconds, UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
 def _columns(header: list[str], spec: Spec, source: str, line: int) -> dict[str, int]:

@@ -46,7 +46,6 @@ from hosttool.formats.hexfile import block_area, block_image, hex_text
 from hosttool.formats.readings import (
     ReadingsFile,
     UnitReadings,
-    format_time_utc,
     load_readings,
     unit_cal_time,
 )
@@ -54,6 +53,7 @@ from hosttool.production.fit import Context, calibrate_unit
 from hosttool.production.record import Record
 from hosttool.spec.schema import load_spec
 from hosttool.util.atomic_group import write_group
+from hosttool.util.utctime import format_time_utc
 
 #: Units handed to a worker process at a time (with jobs > 1).
 CHUNK = 64

@@ -25,18 +25,20 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from pathlib import Path
+from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
 
+from hosttool import __version__
 from hosttool.design.model import static_integer
-from hosttool.design.resolve import LIN_FRAC, Design, UnitConstants, check_constants
+from hosttool.design.resolve import LIN_FRAC, Design, UnitConstants
 from hosttool.errors import DesignError, InputError
-from hosttool.formats.caljson import CalRecord, read_calfile
+from hosttool.formats.caljson import CAUTIONS, FORMAT, FORMAT_VERSION, constants_json, formats
 from hosttool.formats.readings import UnitReadings
 from hosttool.physics.bridge import bridge_of
 from hosttool.physics.oiml import max_intervals, mpe_intervals
+from hosttool.util.utctime import format_time_utc
 
 F64 = NDArray[np.float64]
 
@@ -522,23 +524,26 @@ def calibrate_unit(ctx: Context, u: UnitReadings, *, cal_time_utc: int) -> UnitC
 # ----------------------------------------------------------------------------- CAL.json
 
 
-def read_passed(path: Path, design: Design) -> CalRecord:
-    """A CAL.json for ``design``'s spec whose unit passed, its constants checked against the
-    design's formats; anything else is refused (exit status 2)."""
-    record = read_calfile(path, design)
-    if record.verdict != "pass":
-        raise InputError(f"{path}: verdict: the unit {record.serial} failed its limits; its "
-                         "constants must not go into a unit")
-    check_constants(record.constants, bits=design.spec.adc.bits, g=design.guard_bits,
-                    scale=design.scale, lin=design.linearisation, temp=design.temperature,
-                    source=str(path))
-    return record
-
-
-def load_calibration(path: Path, design: Design) -> UnitConstants:
-    """The constants of a passed unit's CAL.json made for ``design``'s spec.
-
-    Refuses (``InputError``/``DesignError``, exit status 2) a file for another spec (spec
-    hash), other fixed-point formats, a failed unit, or constants outside the formats.
-    """
-    return read_passed(path, design).constants
+def calibration_json(result: UnitCalibration, design: Design, *, readings_file: str,
+                     readings_sha256: str) -> dict[str, Any]:
+    """The CAL.json object of one unit."""
+    spec = design.spec
+    return {
+        "format": FORMAT, "format_version": FORMAT_VERSION, "tool_version": __version__,
+        "spec": {"name": spec.name, "sha256": spec.sha256},
+        "serial": result.serial, "cal_time_utc": format_time_utc(result.cal_time_utc),
+        "readings": {"file": readings_file, "sha256": readings_sha256},
+        "unit": spec.sensor.unit, "formats": formats(design),
+        "constants": constants_json(result.constants),
+        "verdict": result.verdict, "reasons": list(result.reasons),
+        "criteria": [{"key": c.key, "label": c.label, "value": c.value, "limit": c.limit,
+                      "unit": c.unit, "source": c.source, "pass": c.passed}
+                     for c in result.criteria],
+        "figures": result.figures,
+        "rounding": [{"constant": r.constant, "integer": r.integer, "exact": r.exact,
+                      "adds": r.adds} for r in result.rounding],
+        "points": [{"line": p.line, "reference": p.reference, "temperature_c": p.temperature_c,
+                    "direction": "up" if p.up else "down", "output": p.output,
+                    "error": p.error, "linearity": p.linearity} for p in result.points],
+        "cautions": list(CAUTIONS),
+    }

@@ -19,8 +19,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from hosttool.design.resolve import Design
-from hosttool.formats.readings import format_time_utc, reference_column
+from hosttool.formats.readings import reference_column
 from hosttool.physics.bridge import bridge_of
+from hosttool.util.utctime import format_time_utc
 
 HEADER_NOTE = "# synthetic readings: invented numbers for a demonstration, not from real units"
 
