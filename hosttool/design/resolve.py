@@ -450,4 +450,4 @@ def make_design(spec: Spec, constants: UnitConstants | None = None) -> Design:
     return Design(spec=spec, budget=budget, guard_bits=g, input_bound=input_bound,
                   stages=stages, cascade=cascade, nodes=nodes, scale=scale,
                   linearisation=lin, temperature=temp, nominal=nominal,
-                  filter_report=report, **unit)  # type: ignore[arg-type]
+                  filter_report=report, **unit)
