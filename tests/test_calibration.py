@@ -24,7 +24,7 @@ from hosttool.errors import InputError
 from hosttool.formats.caljson import load_calibration
 from hosttool.formats.readings import parse_readings
 from hosttool.physics.oiml import mpe_intervals
-from hosttool.production.fit import Context, calibrate_unit
+from hosttool.production.fit import CalibrationContext, calibrate_unit
 from hosttool.production.synthetic_lot import Plan, UnitTruth, lot_csv
 from hosttool.spec.schema import parse_spec
 
@@ -49,7 +49,7 @@ HIVE = _design(HIVE_TEXT, "hive_scale.toml")
 def _calibrate(design, truth: UnitTruth, *, seed: int = 1, plan: Plan | None = None):
     text = lot_csv(design, [truth], seed=seed, start_utc=START, plan=plan)
     unit = parse_readings(text, design.spec, "r.csv").units[truth.serial]
-    return calibrate_unit(Context.of(design), unit, cal_time_utc=START), unit
+    return calibrate_unit(CalibrationContext.of(design), unit, cal_time_utc=START), unit
 
 
 def _cli(*args: str) -> tuple[int, str, str]:
@@ -122,7 +122,7 @@ def test_temperature_coefficients_agree_with_polyfit_per_temperature() -> None:
 
 def test_polynomial_mode_fits_the_unit_and_matches_polyfit() -> None:
     """Source: numpy.polyfit (degree 3) of the target output against the design's normalised
-    variable w = s / 2^K (design.Linearisation), computed here from the constants."""
+    variable w = s / 2^K (design.LinPolynomial), computed here from the constants."""
     text = _without_temperature(HIVE_TEXT) + '\n[linearisation]\nmode = "polynomial"\norder = 3\n'
     design = _design(text)
     truth = UnitTruth("SN3", span_error_pct=1.0, bow_pct_fs=0.05)
@@ -206,7 +206,7 @@ def test_oiml_class_beyond_its_intervals_is_refused() -> None:
     """Source: OIML R 76-1, class III allows at most 10000 e (from memory)."""
     design = _design(HIVE_TEXT.replace("max_error = 0.05", 'oiml_class = "III"'))
     with pytest.raises(InputError, match="class III covers at most 10000 e; the range is 20000"):
-        Context.of(design)
+        CalibrationContext.of(design)
 
 
 # ----------------------------------------------------------------------------- CLI

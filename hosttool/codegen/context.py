@@ -123,7 +123,7 @@ def design_context(d: Design) -> dict[str, Any]:
                 "rate_sps": d.spec.adc.data_rate_sps, "rate_millihz": rate_millihz,
                 "rate_exact": rate_millihz == d.spec.adc.data_rate_sps * 1000,
                 "sinc_order": d.spec.adc.sinc_order,
-                "code_low": -(1 << (bits - 1)), "code_high": (1 << (bits - 1)) - 1},
+                "code_low": d.code_min, "code_high": d.code_max},
         "guard_bits": _shift(g, "guard_bits", src),
         "input_bound_log2": d.input_bound.bit_length() - 1,
         "offset": _const(c.offset, g, "offset", src),
@@ -142,9 +142,7 @@ def design_context(d: Design) -> dict[str, Any]:
         "warnings": d.warnings,
     }
     if lin is not None:
-        if len(c.lin) > calblock.LIN_SLOTS:
-            raise DesignError(f"{src}: linearisation.order: {len(c.lin)} coefficients, the "
-                              f"calibration block holds {calblock.LIN_SLOTS}")
+        calblock.check_lin_slots(len(c.lin), src)
         out["lin"] = {"mode": lin.mode, "count": len(c.lin),
                       "norm_shift": _shift(lin.norm_shift, "linearisation.norm_shift", src),
                       "coeffs": [_const(v, LIN_FRAC, f"lin.c{k}", src, real) for k, (v, real)
@@ -208,14 +206,12 @@ def calblock_context(d: Design) -> dict[str, Any]:
     target = d.spec.target
     src = d.spec.source
     size = target.calblock_size if target else None
-    if size is not None and size < calblock.BLOCK_SIZE:
-        raise DesignError(f"{src}: target.calblock_size: {size} bytes cannot hold the "
-                          f"{calblock.BLOCK_SIZE}-byte calibration block")
+    if size is not None:
+        calblock.check_area_size(size, src)
     offsets = calblock.offsets()
     fields = [{"name": f.name, "ctype": f.ctype, "count": f.count, "doc": f.doc,
                "offset": offsets[f.name], "size": f.size} for f in calblock.LAYOUT]
-    flags = ((calblock.FLAG_LINEARISATION if d.linearisation else 0)
-             | (calblock.FLAG_TEMPERATURE if d.temperature else 0))
+    flags = calblock.design_flags(d)
     return {"magic": calblock.MAGIC, "layout_version": calblock.LAYOUT_VERSION,
             "length": calblock.BLOCK_SIZE, "fields": fields,
             "address": target.calblock_address if target else None, "size": size,

@@ -9,11 +9,16 @@ from pathlib import Path
 
 from hosttool.design.resolve import LIN_FRAC, Design, UnitConstants, make_design
 from hosttool.errors import InputError
-from hosttool.formats.caljson import CAUTIONS
 from hosttool.formats.readings import load_readings, unit_cal_time
-from hosttool.production.fit import Context, UnitCalibration, calibrate_unit, calibration_json
+from hosttool.production.fit import (
+    CalibrationContext,
+    UnitCalibration,
+    calibrate_unit,
+    calibration_json,
+)
 from hosttool.spec.schema import load_spec
 from hosttool.util.atomic import write_atomic
+from hosttool.util.cautions import SAFETY
 from hosttool.util.utctime import format_time_utc, parse_time_utc
 
 
@@ -93,7 +98,7 @@ def calibration_text(result: UnitCalibration, design: Design, *, readings: str) 
     else:
         lines.append(f"verdict: FAIL (unit {result.serial})")
         lines += [f"  - {reason}" for reason in result.reasons]
-    lines += [""] + [f"caution: {text}" for text in CAUTIONS]
+    lines += [""] + [f"caution: {text}" for text in SAFETY]
     return "\n".join(lines) + "\n"
 
 
@@ -108,7 +113,7 @@ def run_calibrate(spec_path: Path, readings_path: Path, *, serial: str, out: Pat
     that fails its limits: the figures are the record); return the result and its text."""
     override = cal_time_option(cal_time)
     design = make_design(load_spec(spec_path))
-    ctx = Context.of(design)
+    ctx = CalibrationContext.of(design)
     readings = load_readings(readings_path, design.spec)
     unit = readings.units.get(serial.strip())
     if unit is None:

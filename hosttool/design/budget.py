@@ -15,10 +15,11 @@ from hosttool.errors import DesignError
 from hosttool.physics.adc import (
     PEAK_TO_PEAK_OVER_RMS,
     Converter,
+    adc_sinc_magnitude,
     alias_hz,
+    aliases_hz,
     best_gain,
     rejection_db,
-    sinc_magnitude,
 )
 from hosttool.physics.bridge import bridge_of, lead_desensitisation
 from hosttool.spec.schema import Spec
@@ -102,13 +103,12 @@ def signal_band(spec: Spec) -> float:
 
 def _mains(spec: Spec, band_hz: float) -> tuple[MainsLine, ...]:
     fd = spec.adc.data_rate_sps
-    n = spec.adc.modulator_rate_hz / fd if spec.adc.modulator_rate_hz else None
     lines = []
     for f in MAINS_HZ:
         sweep = np.linspace(f * (1 - MAINS_TOLERANCE), f * (1 + MAINS_TOLERANCE), 2001)
-        mags = sinc_magnitude(sweep, fd, spec.adc.sinc_order, n)
-        aliases = np.abs(sweep - fd * np.round(sweep / fd))
-        nominal = float(sinc_magnitude(f, fd, spec.adc.sinc_order, n))
+        mags = adc_sinc_magnitude(spec.adc, sweep)
+        aliases = aliases_hz(sweep, fd)
+        nominal = float(adc_sinc_magnitude(spec.adc, f))
         in_band_mask = aliases <= band_hz
         lines.append(MainsLine(
             frequency_hz=f,

@@ -112,8 +112,7 @@ def _sat(values: I64, name: str, run: IntegerRun) -> I64:
 def _inputs(design: Design, codes: ArrayLike, temps_centi: ArrayLike | None
             ) -> tuple[I64, I64 | None]:
     x = np.asarray(codes, dtype=np.int64)
-    limit = 1 << (design.spec.adc.bits - 1)
-    if x.ndim != 1 or (x.size and (x.min() < -limit or x.max() > limit - 1)):
+    if x.ndim != 1 or (x.size and (x.min() < design.code_min or x.max() > design.code_max)):
         raise ValueError(f"codes must be a 1-D array of {design.spec.adc.bits}-bit values")
     if temps_centi is None:
         return x, None

@@ -22,7 +22,8 @@ from hosttool.design.fixedpoint import INT32_MAX, frac_bits_for, quantise
 from hosttool.design.headroom import CascadeAnalysis, NodeBound, analyse_cascade, node_bounds
 from hosttool.design.response import ChainReport, analyse_chain
 from hosttool.errors import DesignError
-from hosttool.physics.bridge import bridge_of
+from hosttool.physics.adc import Converter, sinc_decimation
+from hosttool.physics.bridge import Bridge, bridge_of
 from hosttool.spec.schema import Spec
 
 #: Q format of the normalised linearisation variable and coefficients, and of the span gain.
@@ -58,7 +59,7 @@ class Scale:
 
 
 @dataclass(frozen=True)
-class Linearisation:
+class LinPolynomial:
     """y = 2^K p(s / 2^K), p(w) = sum c_k w^k evaluated by Horner in Q30."""
 
     mode: str                   # "bridge_inverse" or "polynomial"
@@ -78,6 +79,14 @@ class TempComp:
     span_shift: int             # Ss
     zero_range: float           # largest |Kz / 2^Sz| the format holds, LSB per 0.01 C
     span_range: float           # largest |Ks / 2^Ss| / 2^30 the format holds, per 0.01 C
+
+    def realised_zero(self, tc_zero: int) -> float:
+        """Kz / 2^Sz: output LSB per 0.01 C."""
+        return math.ldexp(tc_zero, -self.zero_shift)
+
+    def realised_span(self, tc_span: int) -> float:
+        """Ks / 2^Ss / 2^30: relative gain change per 0.01 C."""
+        return math.ldexp(tc_span, -self.span_shift - LIN_FRAC)
 
     @property
     def dt_max(self) -> int:
@@ -101,13 +110,15 @@ class Design:
 
     spec: Spec
     budget: Budget
+    bridge: Bridge              # the exact bridge model, leads included
+    converter: Converter        # the ADC at the chosen gain: code range, LSB in volts
     guard_bits: int             # G
     input_bound: int            # |d| <= this, chain words (2^(bits + G))
     stages: tuple[Stage, ...]
     cascade: CascadeAnalysis
     nodes: tuple[NodeBound, ...]          # the filter cascade's nodes and accumulators
     scale: Scale
-    linearisation: Linearisation | None
+    linearisation: LinPolynomial | None
     temperature: TempComp | None
     nominal: UnitConstants
     constants: UnitConstants    # in force: nominal, or one unit's
@@ -117,6 +128,30 @@ class Design:
     design_errors: tuple[ErrorTerm, ...]   # realised constants against the ideal design
     filter_report: ChainReport
     warnings: tuple[str, ...]
+
+    @property
+    def code_min(self) -> int:
+        """Lowest raw ADC code."""
+        return self.converter.code_min
+
+    @property
+    def code_max(self) -> int:
+        """Highest raw ADC code."""
+        return self.converter.code_max
+
+    @property
+    def output_step(self) -> float:
+        """One output LSB in output units (``output.resolution``)."""
+        return self.spec.output.resolution
+
+    def to_units(self, lsb: float) -> float:
+        """A figure in output LSB expressed in output units."""
+        return lsb * self.spec.output.resolution
+
+    @property
+    def ratio_per_count(self) -> float:
+        """Bridge output ratio (V/V) of one ADC code at the spec's excitation."""
+        return self.converter.lsb_v / self.spec.excitation.voltage_v
 
     @property
     def error_bound_lsb(self) -> float:
@@ -200,7 +235,7 @@ def _scale(spec: Spec, budget: Budget, guard_bits: int) -> Scale:
     return Scale(shift=shift, ideal=ideal, multiplier_range=widest, multiplier_limit=limit)
 
 
-def _linearisation(spec: Spec, budget: Budget, output_bound: float) -> Linearisation | None:
+def _linearisation(spec: Spec, bridge: Bridge, output_bound: float) -> LinPolynomial | None:
     lin = spec.linearisation
     if lin.mode == "none":
         return None
@@ -211,13 +246,11 @@ def _linearisation(spec: Spec, budget: Budget, output_bound: float) -> Linearisa
                           f"Q{LIN_FRAC} variable can normalise (at most 2^{LIN_FRAC - 2})")
     if lin.mode == "polynomial":
         coeffs = (0.0, 1.0) + (0.0,) * (lin.order - 1)
-        return Linearisation("polynomial", k, coeffs, 0.0)
-    bridge = bridge_of(spec.sensor)
+        return LinPolynomial("polynomial", k, coeffs, 0.0)
     res = spec.output.resolution
-    r0, slope = bridge.zero_ratio - bridge.offset, bridge.sensitivity
     # s: the linearly scaled reading (tangent sensitivity) of measurand m, in output LSB
     m = np.linspace(bridge.m_min, bridge.m_max, 4001)
-    s = (np.asarray(bridge.ratio(m)) - bridge.offset - r0) / (slope * res)
+    s = np.asarray(bridge.tangent_reading(m)) / res
     target = m / res
     w = s / math.ldexp(1.0, k)
     poly = np.polynomial.Polynomial.fit(w, target / math.ldexp(1.0, k), lin.order,
@@ -227,7 +260,7 @@ def _linearisation(spec: Spec, budget: Budget, output_bound: float) -> Linearisa
     if max(abs(c) for c in coeffs) >= 2.0 or sum(abs(c) for c in coeffs) >= 4.0:
         raise DesignError(f"{spec.source}: linearisation.order: the fitted polynomial's "
                           "coefficients are too large for Q1.30 words")
-    return Linearisation("bridge_inverse", k, coeffs, residual)
+    return LinPolynomial("bridge_inverse", k, coeffs, residual)
 
 
 def _temperature(spec: Spec, full_scale_lsb: float) -> TempComp | None:
@@ -248,11 +281,11 @@ def _temperature(spec: Spec, full_scale_lsb: float) -> TempComp | None:
         zero_range=zero_range, span_range=span_range)
 
 
-def _nominal(spec: Spec, budget: Budget, g: int, scale: Scale, lin: Linearisation | None,
-             temp: TempComp | None, full_scale_lsb: float) -> UnitConstants:
-    bridge = bridge_of(spec.sensor)
+def _nominal(spec: Spec, bridge: Bridge, converter: Converter, g: int, scale: Scale,
+             lin: LinPolynomial | None, temp: TempComp | None,
+             full_scale_lsb: float) -> UnitConstants:
     lead_offset_counts = (bridge.zero_ratio - bridge.offset) * spec.excitation.voltage_v \
-        / budget.converter(spec.adc.bits).lsb_v
+        / converter.lsb_v
     tc_zero = tc_span = 0
     if temp is not None and spec.temperature is not None:
         alpha = spec.temperature.zero_tc_ppm_fs_per_c * 1e-6 * full_scale_lsb / 100.0
@@ -272,7 +305,7 @@ def offset_limit(bits: int, g: int) -> int:
 
 
 def check_constants(c: UnitConstants, *, bits: int, g: int, scale: Scale,
-                    lin: Linearisation | None, temp: TempComp | None, source: str) -> None:
+                    lin: LinPolynomial | None, temp: TempComp | None, source: str) -> None:
     """Refuse per-unit constants outside the formats the range proof assumed."""
     if abs(c.offset) > offset_limit(bits, g):
         raise DesignError(f"{source}: zero offset {c.offset / 2 ** g:.1f} counts lies outside "
@@ -292,7 +325,7 @@ def check_constants(c: UnitConstants, *, bits: int, g: int, scale: Scale,
 
 
 def _errors(spec: Spec, cascade: CascadeAnalysis, scale: Scale, c: UnitConstants,
-            lin: Linearisation | None, temp: TempComp | None, scaled_bound: float
+            lin: LinPolynomial | None, temp: TempComp | None, scaled_bound: float
             ) -> tuple[ErrorTerm, ...]:
     gain = abs(scale.realised(c.scale_mul))
     lin_slope = 1.0
@@ -301,8 +334,7 @@ def _errors(spec: Spec, cascade: CascadeAnalysis, scale: Scale, c: UnitConstants
         lin_slope = max(1.0, sum(k * abs(x) for k, x in enumerate(lin_coeffs)))
     temp_gain = 1.0
     if temp is not None:
-        temp_gain = 1.0 + abs(c.tc_span) / 2.0 ** temp.span_shift / 2.0 ** LIN_FRAC \
-            * temp.dt_max + 2.0 ** -LIN_FRAC
+        temp_gain = 1.0 + abs(temp.realised_span(c.tc_span)) * temp.dt_max + 2.0 ** -LIN_FRAC
     amplify = lin_slope * temp_gain
     terms = [ErrorTerm("filter rounding", cascade.output_rounding * gain * amplify,
                        cascade.output_rounding_rms * gain * amplify),
@@ -316,7 +348,7 @@ def _errors(spec: Spec, cascade: CascadeAnalysis, scale: Scale, c: UnitConstants
         lin_bound = scaled_bound
         if lin is not None:
             lin_bound = sum(abs(x) for x in lin_coeffs) * 2.0 ** lin.norm_shift
-        s1 = lin_bound + abs(c.tc_zero) / 2.0 ** temp.zero_shift * temp.dt_max + 1
+        s1 = lin_bound + abs(temp.realised_zero(c.tc_zero)) * temp.dt_max + 1
         # an exact zero coefficient rounds nothing: z = 0, or g = 0 and s1 * g = 0
         zero_part = 0.5 * temp_gain if c.tc_zero else 0.0
         span_part = s1 * 0.5 * 2.0 ** -LIN_FRAC + 0.5 if c.tc_span else 0.0
@@ -326,7 +358,7 @@ def _errors(spec: Spec, cascade: CascadeAnalysis, scale: Scale, c: UnitConstants
 
 
 def _design_errors(cascade: CascadeAnalysis, input_bound: int, scale: Scale, c: UnitConstants,
-                   lin: Linearisation | None) -> tuple[ErrorTerm, ...]:
+                   lin: LinPolynomial | None) -> tuple[ErrorTerm, ...]:
     gain = abs(scale.realised(c.scale_mul))
     coeff = cascade.total.minus(cascade.ideal_total).l1 * input_bound * gain
     terms = [ErrorTerm("filter coefficients", coeff, coeff / math.sqrt(3))]
@@ -359,7 +391,7 @@ def _scaled_bound(cascade: CascadeAnalysis, input_bound: int, scale: Scale) -> f
 
 
 def _unit_fields(spec: Spec, cascade: CascadeAnalysis, g: int, scale: Scale,
-                 lin: Linearisation | None, temp: TempComp | None, c: UnitConstants,
+                 lin: LinPolynomial | None, temp: TempComp | None, c: UnitConstants,
                  filter_warnings: tuple[str, ...]) -> dict[str, Any]:
     """The Design fields that depend on the constants in force, after checking them."""
     check_constants(c, bits=spec.adc.bits, g=g, scale=scale, lin=lin, temp=temp,
@@ -384,7 +416,7 @@ def _unit_fields(spec: Spec, cascade: CascadeAnalysis, g: int, scale: Scale,
             "static_nodes": static, "output_bound_lsb": out_bound, "warnings": tuple(warnings)}
 
 
-def _static_nodes(chain_bound: float, scale: Scale, lin: Linearisation | None,
+def _static_nodes(chain_bound: float, scale: Scale, lin: LinPolynomial | None,
                   temp: TempComp | None, c: UnitConstants, rate_hz: float
                   ) -> tuple[NodeBound, ...]:
     """Worst cases of the scale, linearisation and temperature steps (output LSB, or the
@@ -406,8 +438,8 @@ def _static_nodes(chain_bound: float, scale: Scale, lin: Linearisation | None,
         bound = acc / 2.0 ** LIN_FRAC * 2.0 ** lin.norm_shift + 0.5
         nodes.append(NodeBound("linearisation", 0.0, 0.0, bound, 32, rate_hz))
     if temp is not None:
-        kz = max(abs(c.tc_zero) / 2.0 ** temp.zero_shift, temp.zero_range)
-        ks = max(abs(c.tc_span) / 2.0 ** temp.span_shift, temp.span_range * 2.0 ** LIN_FRAC)
+        kz = max(abs(temp.realised_zero(c.tc_zero)), temp.zero_range)
+        ks = max(abs(temp.realised_span(c.tc_span)), temp.span_range) * 2.0 ** LIN_FRAC
         s1 = min(bound, INT32_MAX + 1.0) + kz * temp.dt_max + 0.5
         g = ks * temp.dt_max + 0.5
         nodes.append(NodeBound("temperature.product", 0.0, 0.0,
@@ -435,19 +467,21 @@ def make_design(spec: Spec, constants: UnitConstants | None = None) -> Design:
                               f"{node.bound:.4g}, beyond its {node.word}-bit word")
     scale = _scale(spec, budget, g)
     scaled_bound = _scaled_bound(cascade, input_bound, scale)
-    lin = _linearisation(spec, budget, min(scaled_bound, INT32_MAX))
+    bridge = bridge_of(spec.sensor)
+    converter = budget.converter(spec.adc.bits)
+    lin = _linearisation(spec, bridge, min(scaled_bound, INT32_MAX))
     full_scale_lsb = spec.sensor.full_scale / spec.output.resolution
     temp = _temperature(spec, full_scale_lsb)
-    nominal = _nominal(spec, budget, g, scale, lin, temp, full_scale_lsb)
+    nominal = _nominal(spec, bridge, converter, g, scale, lin, temp, full_scale_lsb)
     report = analyse_chain(stages, passband_edge_hz=signal_band(spec),
                            stopband_edge_hz=_stopband_edge(spec),
                            adc_rate_hz=spec.adc.data_rate_sps, sinc_order=spec.adc.sinc_order,
                            full_scale_lsb=full_scale_lsb,
-                           sinc_decimation=(spec.adc.modulator_rate_hz / spec.adc.data_rate_sps
-                                            if spec.adc.modulator_rate_hz else None))
+                           sinc_decimation=sinc_decimation(spec.adc))
     unit = _unit_fields(spec, cascade, g, scale, lin, temp,
                         nominal if constants is None else constants, tuple(report.warnings))
-    return Design(spec=spec, budget=budget, guard_bits=g, input_bound=input_bound,
+    return Design(spec=spec, budget=budget, bridge=bridge, converter=converter, guard_bits=g,
+                  input_bound=input_bound,
                   stages=stages, cascade=cascade, nodes=nodes, scale=scale,
                   linearisation=lin, temperature=temp, nominal=nominal,
                   filter_report=report, **unit)

@@ -93,10 +93,10 @@ def demo_vectors(design: Design, samples: int = 4000, seed: int = 0
                  ) -> tuple[NDArray[np.int64], NDArray[np.int64] | None]:
     """A short record for the demo: steps through the ADC range, then random codes."""
     rng = np.random.default_rng(seed)
-    limit = 1 << (design.spec.adc.bits - 1)
-    levels = np.linspace(-limit, limit - 1, 9).astype(np.int64)
+    low, high = design.code_min, design.code_max
+    levels = np.linspace(low, high, 9).astype(np.int64)
     steps = np.repeat(levels, max(1, samples // (2 * levels.size)))
-    codes = np.concatenate([steps, rng.integers(-limit, limit, samples - steps.size)])
+    codes = np.concatenate([steps, rng.integers(low, high + 1, samples - steps.size)])
     temps = None
     if design.temperature is not None:
         t = design.temperature

@@ -97,6 +97,26 @@ class CalBlock:
     crc32: int
 
 
+def design_flags(design: Design) -> int:
+    """The block's flags for ``design``: which optional steps its constants feed."""
+    return ((FLAG_LINEARISATION if design.linearisation else 0)
+            | (FLAG_TEMPERATURE if design.temperature else 0))
+
+
+def check_area_size(size: int, source: str) -> None:
+    """Refuse (DesignError) a flash area of ``size`` bytes too small for the block."""
+    if size < BLOCK_SIZE:
+        raise DesignError(f"{source}: target.calblock_size: {size} bytes cannot hold the "
+                          f"{BLOCK_SIZE}-byte calibration block")
+
+
+def check_lin_slots(count: int, source: str) -> None:
+    """Refuse (DesignError) more linearisation coefficients than the block's slots."""
+    if count > LIN_SLOTS:
+        raise DesignError(f"{source}: linearisation.order: {count} coefficients, the "
+                          f"calibration block holds {LIN_SLOTS}")
+
+
 def spec_hash8(design: Design) -> bytes:
     """The first 8 bytes of the spec's SHA-256 (the block's spec hash)."""
     return bytes.fromhex(design.spec.sha256)[:8]
@@ -108,12 +128,9 @@ def encode(design: Design, constants: UnitConstants, *, serial: str, cal_time_ut
     if not raw_serial or len(raw_serial) > SERIAL_BYTES or not serial.isprintable():
         raise InputError(f"serial {serial!r}: must be 1 to {SERIAL_BYTES} printable ASCII "
                          "characters")
-    lin = design.linearisation
     temp = design.temperature
-    if len(constants.lin) > LIN_SLOTS:
-        raise InputError(f"{len(constants.lin)} linearisation coefficients; the block holds "
-                         f"{LIN_SLOTS}")
-    flags = (FLAG_LINEARISATION if lin else 0) | (FLAG_TEMPERATURE if temp else 0)
+    check_lin_slots(len(constants.lin), design.spec.source)
+    flags = design_flags(design)
     lin_values = list(constants.lin) + [0] * (LIN_SLOTS - len(constants.lin))
     values: list[object] = [
         MAGIC, LAYOUT_VERSION, BLOCK_SIZE,
@@ -176,8 +193,7 @@ def check_against(block: CalBlock, design: Design, source: str) -> None:
         raise InputError(f"{source}: the block's shifts {found} differ from the design's "
                          f"{expected}")
     lin = design.linearisation
-    layout = (len(lin.coeffs) if lin else 0,
-              (FLAG_LINEARISATION if lin else 0) | (FLAG_TEMPERATURE if temp else 0),
+    layout = (len(lin.coeffs) if lin else 0, design_flags(design),
               temp.reference_centi if temp else 0)
     found_layout = (len(block.constants.lin), block.flags, block.ref_temp_centi)
     if layout != found_layout:

@@ -23,14 +23,6 @@ from hosttool.util.utctime import parse_time_utc
 FORMAT = "hosttool-calibration"
 FORMAT_VERSION = 1
 
-CAUTIONS = (
-    "Weighing for trade needs type approval and verification by the competent "
-    "legal-metrology authority; these figures are no such verification.",
-    "Lifting equipment and pressure systems follow local codes and licensed practice; the "
-    "tool's figures do not replace them.",
-)
-
-
 @dataclass(frozen=True)
 class CalRecord:
     """What a CAL.json holds that the image and the firmware need."""

@@ -15,8 +15,8 @@ from pathlib import Path
 from intelhex import IntelHex, IntelHexError
 
 from hosttool.design.resolve import Design
-from hosttool.errors import InputError
-from hosttool.formats.calblock import BLOCK_SIZE
+from hosttool.errors import DesignError, InputError
+from hosttool.formats.calblock import BLOCK_SIZE, check_area_size
 
 ERASED = 0xFF
 
@@ -27,9 +27,10 @@ def block_area(design: Design) -> tuple[int, int]:
     if spec.target is None:
         raise InputError(f"{spec.source}: target: the spec has no [target] section "
                          "(calblock_address, calblock_size)")
-    if spec.target.calblock_size < BLOCK_SIZE:
-        raise InputError(f"{spec.source}: target.calblock_size: {spec.target.calblock_size} "
-                         f"bytes cannot hold the {BLOCK_SIZE}-byte calibration block")
+    try:
+        check_area_size(spec.target.calblock_size, spec.source)
+    except DesignError as exc:
+        raise InputError(str(exc)) from None
     return spec.target.calblock_address, spec.target.calblock_size
 
 

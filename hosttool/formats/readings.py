@@ -31,6 +31,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from hosttool.errors import InputError
+from hosttool.physics.adc import code_range
 from hosttool.spec.schema import Spec
 from hosttool.util.utctime import parse_time_utc
 
@@ -143,7 +144,7 @@ class _Rules:
             t_span = (f"the compensated range {t_low:g} .. {t_high:g} C (temperature.min_c, "
                       "temperature.max_c)")
         return cls(reference_column(spec), -full if spec.sensor.bipolar else 0.0, full,
-                   -(1 << (spec.adc.bits - 1)), (1 << (spec.adc.bits - 1)) - 1,
+                   *code_range(spec.adc.bits),
                    t_low, t_high, t_span)
 
     def reference_ok(self, value: float) -> bool:

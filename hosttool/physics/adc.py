@@ -20,6 +20,11 @@ from hosttool.spec.schema import Adc
 PEAK_TO_PEAK_OVER_RMS = 6.6
 
 
+def code_range(bits: int) -> tuple[int, int]:
+    """Lowest and highest code of a ``bits``-bit two's-complement converter."""
+    return -(1 << (bits - 1)), (1 << (bits - 1)) - 1
+
+
 @dataclass(frozen=True)
 class Converter:
     """One ADC at one PGA gain and reference."""
@@ -31,12 +36,12 @@ class Converter:
     @property
     def code_max(self) -> int:
         """Largest code, 2^(bits-1) - 1."""
-        return (1 << (self.bits - 1)) - 1
+        return code_range(self.bits)[1]
 
     @property
     def code_min(self) -> int:
         """Smallest code, -2^(bits-1)."""
-        return -(1 << (self.bits - 1))
+        return code_range(self.bits)[0]
 
     @property
     def input_range_v(self) -> float:
@@ -100,4 +105,20 @@ def rejection_db(magnitude: float, floor_db: float = 300.0) -> float:
 
 def alias_hz(freq_hz: float, sample_rate: float) -> float:
     """Where a tone lands after sampling at sample_rate: its distance to the nearest multiple."""
-    return abs(freq_hz - sample_rate * round(freq_hz / sample_rate))
+    return float(aliases_hz(freq_hz, sample_rate))
+
+
+def aliases_hz(freq_hz: ArrayLike, sample_rate: float) -> NDArray[np.float64]:
+    """``alias_hz`` of every frequency of an array."""
+    f = np.asarray(freq_hz, dtype=np.float64)
+    return np.abs(f - sample_rate * np.round(f / sample_rate))
+
+
+def sinc_decimation(adc: Adc) -> float | None:
+    """The sinc filter's decimation ratio: modulator rate over data rate (None: ideal limit)."""
+    return adc.modulator_rate_hz / adc.data_rate_sps if adc.modulator_rate_hz else None
+
+
+def adc_sinc_magnitude(adc: Adc, freq_hz: ArrayLike) -> NDArray[np.float64]:
+    """|H(f)| of this ADC's own sinc^k filter (its order, data rate and decimation)."""
+    return sinc_magnitude(freq_hz, adc.data_rate_sps, adc.sinc_order, sinc_decimation(adc))

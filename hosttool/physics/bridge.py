@@ -74,6 +74,14 @@ class Bridge:
         """Slope dr/dm at zero measurand (V/V per output unit)."""
         return (self.alpha * self.delta - self.beta * self.gamma) / self.delta ** 2
 
+    def tangent_reading(self, m: ArrayLike) -> NDArray[np.float64] | float:
+        """What a linear reading of the exact bridge shows for measurand ``m``: the output
+        ratio's change from zero divided by the tangent sensitivity at zero (output units).
+        Equal to ``m`` for a linear bridge; the linearisation maps it back to ``m``."""
+        m = np.asarray(m, dtype=np.float64)
+        out = (np.asarray(self.ratio(m)) - self.zero_ratio) / self.sensitivity
+        return float(out) if out.ndim == 0 else out
+
     def ratio_linear(self, m: ArrayLike) -> NDArray[np.float64] | float:
         """Linearised output ratio: the tangent at zero, r(0) + r'(0) m (V/V)."""
         m = np.asarray(m, dtype=np.float64)

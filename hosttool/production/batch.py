@@ -41,7 +41,7 @@ from pathlib import Path
 from hosttool.design.resolve import make_design
 from hosttool.errors import InputError, OutputError
 from hosttool.formats.calblock import encode
-from hosttool.formats.caljson import CAUTIONS, constants_json
+from hosttool.formats.caljson import constants_json
 from hosttool.formats.hexfile import block_area, block_image, hex_text
 from hosttool.formats.readings import (
     ReadingsFile,
@@ -49,10 +49,11 @@ from hosttool.formats.readings import (
     load_readings,
     unit_cal_time,
 )
-from hosttool.production.fit import Context, calibrate_unit
+from hosttool.production.fit import CalibrationContext, calibrate_unit
 from hosttool.production.record import Record
 from hosttool.spec.schema import load_spec
 from hosttool.util.atomic_group import write_group
+from hosttool.util.cautions import SAFETY
 from hosttool.util.utctime import format_time_utc
 
 #: Units handed to a worker process at a time (with jobs > 1).
@@ -104,7 +105,7 @@ class BatchSummary:
         return 2 if "refused" in statuses else 1 if "fail" in statuses else 0
 
 
-def prepare(ctx: Context, unit: UnitReadings, override: int | None) -> Prepared:
+def prepare(ctx: CalibrationContext, unit: UnitReadings, override: int | None) -> Prepared:
     """Calibrate one unit and build its image bytes (pure: no files, no record)."""
     try:
         cal_time = unit_cal_time(unit, override)
@@ -278,10 +279,10 @@ def _groups(stream: Iterable[Prepared], size: int) -> Iterator[list[Prepared]]:
 # ----------------------------------------------------------------------------- batch
 
 
-_WORKER: list[tuple[Context, int | None]] = []      # filled in worker processes only
+_WORKER: list[tuple[CalibrationContext, int | None]] = []  # filled in worker processes only
 
 
-def _start_worker(ctx: Context, override: int | None) -> None:
+def _start_worker(ctx: CalibrationContext, override: int | None) -> None:
     _WORKER.append((ctx, override))
 
 
@@ -291,7 +292,7 @@ def _work(unit: UnitReadings) -> Prepared:
 
 
 @contextmanager
-def _preparer(ctx: Context, override: int | None, jobs: int, count: int
+def _preparer(ctx: CalibrationContext, override: int | None, jobs: int, count: int
               ) -> Iterator[Callable[[list[UnitReadings]], Iterator[Prepared]]]:
     """A function giving prepared units in file order, in ``jobs`` worker processes if > 1.
 
@@ -311,7 +312,7 @@ def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: Path | Non
               ) -> BatchSummary:
     """Calibrate, image and record every unit of a readings file."""
     design = make_design(load_spec(spec_path))
-    ctx = Context.of(design)
+    ctx = CalibrationContext.of(design)
     block_area(design)
     readings = load_readings(readings_path, design.spec)
     if not out.is_dir():
@@ -350,5 +351,5 @@ def batch_text(summary: BatchSummary, *, readings: str, out: Path) -> str:
     for o in summary.outcomes:
         if o.status != "pass":
             lines.append(f"  {o.serial}: {o.status.upper()}: {o.reason}")
-    lines += [""] + [f"caution: {text}" for text in CAUTIONS]
+    lines += [""] + [f"caution: {text}" for text in SAFETY]
     return "\n".join(lines) + "\n"

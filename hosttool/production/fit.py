@@ -34,10 +34,10 @@ from hosttool import __version__
 from hosttool.design.model import static_integer
 from hosttool.design.resolve import LIN_FRAC, Design, UnitConstants
 from hosttool.errors import DesignError, InputError
-from hosttool.formats.caljson import CAUTIONS, FORMAT, FORMAT_VERSION, constants_json, formats
+from hosttool.formats.caljson import FORMAT, FORMAT_VERSION, constants_json, formats
 from hosttool.formats.readings import UnitReadings
-from hosttool.physics.bridge import bridge_of
 from hosttool.physics.oiml import max_intervals, mpe_intervals
+from hosttool.util.cautions import SAFETY
 from hosttool.util.utctime import format_time_utc
 
 F64 = NDArray[np.float64]
@@ -140,7 +140,7 @@ class UnitCalibration:
 
 
 @dataclass(frozen=True)
-class Context:
+class CalibrationContext:
     """Everything about the spec a unit's calibration needs, computed once per spec."""
 
     design: Design
@@ -152,11 +152,9 @@ class Context:
     ratio_per_count: float     # bridge output ratio (V/V) per count
     code_min: int
     code_max: int
-    shape_zero: float          # bridge: r(0) for the normalised shape
-    shape_slope: float         # bridge: tangent slope
 
     @classmethod
-    def of(cls, design: Design) -> Context:
+    def of(cls, design: Design) -> CalibrationContext:
         """Build once per spec; refuses a spec without a [calibration] section."""
         spec = design.spec
         if spec.calibration is None:
@@ -170,26 +168,21 @@ class Context:
                                  f"{cal.oiml_class} covers at most "
                                  f"{max_intervals(cal.oiml_class):g} e; the range is {n:g} e "
                                  f"at output.resolution = {spec.output.resolution:g}")
-        bridge = bridge_of(spec.sensor)
-        lsb_v = design.budget.converter(spec.adc.bits).lsb_v
-        volts = spec.excitation.voltage_v
+        bridge = design.bridge
         return cls(
-            design=design, resolution=spec.output.resolution,
+            design=design, resolution=design.output_step,
             full_scale=spec.sensor.full_scale, span_range=bridge.m_max - bridge.m_min,
-            nominal_b=bridge.sensitivity * volts / lsb_v,
+            nominal_b=bridge.sensitivity / design.ratio_per_count,
             noise_counts=design.budget.noise_counts_rms,
-            ratio_per_count=lsb_v / volts,
-            code_min=-(1 << (spec.adc.bits - 1)), code_max=(1 << (spec.adc.bits - 1)) - 1,
-            shape_zero=bridge.zero_ratio - bridge.offset, shape_slope=bridge.sensitivity)
+            ratio_per_count=design.ratio_per_count,
+            code_min=design.code_min, code_max=design.code_max)
 
     def shape(self, reference: F64) -> F64:
         """u(m): the reference in the unit's fitted variable (output units)."""
         lin = self.design.linearisation
         if lin is None or lin.mode != "bridge_inverse":
             return reference
-        bridge = bridge_of(self.design.spec.sensor)
-        ratio = np.asarray(bridge.ratio(reference)) - bridge.offset
-        return (ratio - self.shape_zero) / self.shape_slope
+        return np.asarray(self.design.bridge.tangent_reading(reference))
 
 
 # ----------------------------------------------------------------------------- refusals
@@ -206,7 +199,7 @@ class _Layout:
     points: dict[tuple[int, int], list[int]]
 
     @classmethod
-    def of(cls, ctx: Context, u: UnitReadings) -> _Layout:
+    def of(cls, ctx: CalibrationContext, u: UnitReadings) -> _Layout:
         temps = u.temperature_c.tolist()
         order = sorted(range(len(temps)), key=temps.__getitem__)
         group = [0] * len(temps)
@@ -225,7 +218,7 @@ class _Layout:
                 [self.mean[i] for i in idx if not self.up[i]])
 
 
-def _refuse_rows(ctx: Context, u: UnitReadings) -> None:
+def _refuse_rows(ctx: CalibrationContext, u: UnitReadings) -> None:
     spec = ctx.design.spec
     assert spec.calibration is not None
     top = u.raw_mean + SATURATION_SIGMA * u.raw_std
@@ -249,7 +242,7 @@ def _refuse_rows(ctx: Context, u: UnitReadings) -> None:
                          "measure again")
 
 
-def _refuse_points(ctx: Context, u: UnitReadings, lay: _Layout) -> None:
+def _refuse_points(ctx: CalibrationContext, u: UnitReadings, lay: _Layout) -> None:
     spec = ctx.design.spec
     cal = spec.calibration
     assert cal is not None
@@ -326,7 +319,7 @@ class _Fit:
     residual: F64             # straight-line residuals, counts
 
 
-def _fit(ctx: Context, u: UnitReadings, shape: F64) -> _Fit:
+def _fit(ctx: CalibrationContext, u: UnitReadings, shape: F64) -> _Fit:
     temp = ctx.design.spec.temperature
     ones = np.ones_like(shape)
     if temp is None:
@@ -342,7 +335,8 @@ def _fit(ctx: Context, u: UnitReadings, shape: F64) -> _Fit:
                 residual)
 
 
-def _constants(ctx: Context, u: UnitReadings, fit: _Fit) -> tuple[UnitConstants, dict[str, float]]:
+def _constants(ctx: CalibrationContext, u: UnitReadings, fit: _Fit
+               ) -> tuple[UnitConstants, dict[str, float]]:
     """Round the fit into the design's formats; also return the unrounded values."""
     d = ctx.design
     g, s = d.guard_bits, d.scale.shift
@@ -379,7 +373,8 @@ def _constants(ctx: Context, u: UnitReadings, fit: _Fit) -> tuple[UnitConstants,
                          tc_span=tc_span), exact
 
 
-def _rounding(ctx: Context, c: UnitConstants, exact: dict[str, float]) -> tuple[Rounding, ...]:
+def _rounding(ctx: CalibrationContext, c: UnitConstants,
+              exact: dict[str, float]) -> tuple[Rounding, ...]:
     d = ctx.design
     res, fs = ctx.resolution, ctx.full_scale
     realised = d.scale.realised(c.scale_mul)
@@ -408,7 +403,7 @@ def _rounding(ctx: Context, c: UnitConstants, exact: dict[str, float]) -> tuple[
 # ----------------------------------------------------------------------------- judging
 
 
-def _figures(ctx: Context, fit: _Fit, lay: _Layout, u: UnitReadings,
+def _figures(ctx: CalibrationContext, fit: _Fit, lay: _Layout, u: UnitReadings,
              error: F64 | None) -> dict[str, float | None]:
     b = abs(fit.b)
     hysteresis: float | None = None
@@ -439,7 +434,7 @@ def _figures(ctx: Context, fit: _Fit, lay: _Layout, u: UnitReadings,
     return figures
 
 
-def _criteria(ctx: Context, u: UnitReadings, figures: dict[str, float | None],
+def _criteria(ctx: CalibrationContext, u: UnitReadings, figures: dict[str, float | None],
               error: F64 | None) -> tuple[Criterion, ...]:
     spec = ctx.design.spec
     cal = spec.calibration
@@ -492,7 +487,8 @@ def _criteria(ctx: Context, u: UnitReadings, figures: dict[str, float | None],
                  for key, label, value, limit, unit_, source in rows)
 
 
-def calibrate_unit(ctx: Context, u: UnitReadings, *, cal_time_utc: int) -> UnitCalibration:
+def calibrate_unit(ctx: CalibrationContext, u: UnitReadings, *,
+                   cal_time_utc: int) -> UnitCalibration:
     """Fit, encode, judge one unit (``InputError`` if its readings are refused)."""
     _refuse_rows(ctx, u)
     lay = _Layout.of(ctx, u)
@@ -545,5 +541,5 @@ def calibration_json(result: UnitCalibration, design: Design, *, readings_file: 
         "points": [{"line": p.line, "reference": p.reference, "temperature_c": p.temperature_c,
                     "direction": "up" if p.up else "down", "output": p.output,
                     "error": p.error, "linearity": p.linearity} for p in result.points],
-        "cautions": list(CAUTIONS),
+        "cautions": list(SAFETY),
     }

@@ -20,7 +20,6 @@ import numpy as np
 
 from hosttool.design.resolve import Design
 from hosttool.formats.readings import reference_column
-from hosttool.physics.bridge import bridge_of
 from hosttool.util.utctime import format_time_utc
 
 HEADER_NOTE = "# synthetic readings: invented numbers for a demonstration, not from real units"
@@ -92,7 +91,7 @@ def unit_rows(design: Design, truth: UnitTruth, plan: Plan, rng: np.random.Gener
         rows += [(p, plan.reference_c, False) for p in reversed(points[:-1])]
     for t in plan.other_c:
         rows += [(0.0, t, True), (top, t, True)]
-    bridge = bridge_of(spec.sensor)
+    bridge = design.bridge
     full = max(abs(bridge.m_min), abs(bridge.m_max))
     fs_ratio = abs(float(bridge.ratio(full)) - bridge.zero_ratio)
     m = np.array([r[0] for r in rows])
@@ -107,8 +106,7 @@ def unit_rows(design: Design, truth: UnitTruth, plan: Plan, rng: np.random.Gener
              * change
              + np.where(up, 0.0, truth.hysteresis_pct_fs / 100 * fs_ratio
                         * np.abs(_bow(np.abs(x), False))))
-    lsb_v = design.budget.converter(spec.adc.bits).lsb_v
-    counts = ratio * spec.excitation.voltage_v / lsb_v
+    counts = ratio / design.ratio_per_count
     std = design.budget.noise_counts_rms * truth.noise_factor * rng.uniform(0.95, 1.05,
                                                                               len(rows))
     mean = counts + rng.normal(0.0, 1.0, len(rows)) * std / math.sqrt(plan.samples)

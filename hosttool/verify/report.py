@@ -15,8 +15,9 @@ import numpy as np  # noqa: E402
 
 from hosttool import __version__  # noqa: E402
 from hosttool.design.response import magnitude_response  # noqa: E402
-from hosttool.physics.adc import sinc_magnitude  # noqa: E402
+from hosttool.physics.adc import adc_sinc_magnitude, alias_hz  # noqa: E402
 from hosttool.util.atomic import write_atomic  # noqa: E402
+from hosttool.util.cautions import ARITHMETIC_SCOPE, SAFETY  # noqa: E402
 from hosttool.verify.proof import Verification  # noqa: E402
 
 REALISED = "#1b6f8a"
@@ -25,14 +26,7 @@ SINC = "#b5651d"
 MAINS = "#aa3355"
 BOUND = "#5a8f29"
 
-CAUTIONS = (
-    "These figures prove the arithmetic of the firmware against its own float64 reference; "
-    "they say nothing about the sensor, its mounting, creep, drift or the installation.",
-    "Weighing for trade (legal-for-trade instruments) needs type approval and verification by "
-    "the competent legal-metrology authority; this report does not replace either.",
-    "Lifting equipment, crane loads and pressure systems follow local codes, standards and "
-    "licensed engineering practice; this report does not certify any of them.",
-)
+CAUTIONS = (ARITHMETIC_SCOPE, *SAFETY)
 
 
 def _png(fig: plt.Figure) -> str:
@@ -48,7 +42,7 @@ def _magnitude(v: Verification) -> str:
     fs = d.spec.adc.data_rate_sps
     f = np.linspace(fs / 20000, fs / 2, 4000)
     fig, ax = plt.subplots(figsize=(8, 3.6))
-    sinc = sinc_magnitude(f, fs, d.spec.adc.sinc_order)
+    sinc = adc_sinc_magnitude(d.spec.adc, f)
     if d.stages:
         real = magnitude_response(d.stages, f, realised=True)
         ideal = magnitude_response(d.stages, f, realised=False)
@@ -61,7 +55,7 @@ def _magnitude(v: Verification) -> str:
     else:
         ax.plot(f, 20 * np.log10(np.maximum(sinc, 1e-15)), color=SINC, label="ADC's sinc")
     for mains in (50.0, 60.0):
-        landing = abs(mains - fs * round(mains / fs))
+        landing = alias_hz(mains, fs)
         if landing > 0:  # at 0 Hz it sits in a sinc notch, off this log axis
             ax.axvline(landing, color=MAINS, ls=":", lw=1)
     ax.set_ylim(-180, 10)
