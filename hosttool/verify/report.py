@@ -1,11 +1,13 @@
-"""The self-contained HTML report of a verification: plots inline as PNG, tables, cautions."""
+"""The self-contained HTML report of a verification: plots inline as PNG, tables, cautions.
+
+The page is templates/verify_report.html.j2 (jinja2, autoescape on); this module builds its
+plots and tables from a Verification.
+"""
 
 from __future__ import annotations
 
-import base64
-import html
-import io
 from pathlib import Path
+from typing import Any
 
 import matplotlib
 
@@ -18,6 +20,7 @@ from hosttool.design.response import magnitude_response  # noqa: E402
 from hosttool.physics.adc import adc_sinc_magnitude, alias_hz  # noqa: E402
 from hosttool.util.atomic import write_atomic  # noqa: E402
 from hosttool.util.cautions import ARITHMETIC_SCOPE, SAFETY  # noqa: E402
+from hosttool.util.pages import png_data_uri, render_page  # noqa: E402
 from hosttool.verify.proof import Verification  # noqa: E402
 
 REALISED = "#1b6f8a"
@@ -27,14 +30,6 @@ MAINS = "#aa3355"
 BOUND = "#5a8f29"
 
 CAUTIONS = (ARITHMETIC_SCOPE, *SAFETY)
-
-
-def _png(fig: plt.Figure) -> str:
-    buffer = io.BytesIO()
-    fig.savefig(buffer, format="png", dpi=96, bbox_inches="tight")
-    plt.close(fig)
-    data = base64.b64encode(buffer.getvalue()).decode("ascii")
-    return f'<img alt="plot" src="data:image/png;base64,{data}">'
 
 
 def _magnitude(v: Verification) -> str:
@@ -65,7 +60,7 @@ def _magnitude(v: Verification) -> str:
     ax.set_ylabel("dB")
     ax.grid(True, which="both", alpha=0.3)
     ax.legend(loc="lower left", fontsize=8)
-    return _png(fig)
+    return png_data_uri(fig)
 
 
 def _step(v: Verification) -> str:
@@ -88,7 +83,7 @@ def _step(v: Verification) -> str:
     ax2.set_ylabel("distance to final, LSB")
     ax2.set_xlabel("time, s")
     ax2.legend(fontsize=8)
-    return _png(fig)
+    return png_data_uri(fig)
 
 
 def _static_error(v: Verification) -> str:
@@ -105,7 +100,7 @@ def _static_error(v: Verification) -> str:
             edgecolor="white", linewidth=0.5)
     ax2.set_xlabel("error, LSB (static path, every code)")
     ax2.set_ylabel("codes")
-    return _png(fig)
+    return png_data_uri(fig)
 
 
 def _headroom(v: Verification) -> str:
@@ -116,23 +111,23 @@ def _headroom(v: Verification) -> str:
                                                   for n in nodes])
     ax.set_xlabel("headroom above the proven worst case, bits (teal int32, brown int64)")
     ax.invert_yaxis()
-    return _png(fig)
+    return png_data_uri(fig)
 
 
-def _table(headers: list[str], rows: list[list[str]]) -> str:
-    head = "".join(f"<th>{html.escape(h)}</th>" for h in headers)
-    body = "".join("<tr>" + "".join(f"<td>{html.escape(c)}</td>" for c in r) + "</tr>"
-                   for r in rows)
-    return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+def _section(title: str, *, headers: list[str] | None = None,
+             rows: list[list[str]] | None = None, plots: tuple[tuple[str, str], ...] = ()
+             ) -> dict[str, Any]:
+    table = {"headers": headers, "rows": rows} if headers is not None else None
+    return {"title": title, "table": table,
+            "plots": [{"alt": alt, "uri": uri} for alt, uri in plots]}
 
 
 def report_html(v: Verification) -> str:
-    """The whole report as one HTML document."""
+    """The whole report as one HTML document (templates/verify_report.html.j2)."""
     d = v.design
-    lsb, unit = d.spec.output.resolution, d.spec.sensor.unit
-    verdict = "PASS" if v.passed else "FAIL"
+    unit = d.spec.sensor.unit
     tests = [[t.name, t.description, f"{t.max_error_lsb:.4g}", f"{t.bound_lsb:.4g}",
-              f"{t.rms_error_lsb:.3g}", f"{t.max_error_lsb * lsb:.4g}",
+              f"{t.rms_error_lsb:.3g}", f"{d.to_units(t.max_error_lsb):.4g}",
               "-" if t.sqnr_db is None else f"{t.sqnr_db:.1f}",
               str(sum(t.saturations.values())),
               "-" if t.engines_agree is None else ("yes" if t.engines_agree else "NO"),
@@ -143,47 +138,30 @@ def report_html(v: Verification) -> str:
                f"{s.max_error_lsb:.4g}", f"{s.bound_lsb:.4g}", f"{s.mean_abs_error_lsb:.4g}",
                str(s.saturations), "yes" if s.monotonic else "NO",
                "pass" if s.passed else "FAIL"]]
-    reasons = "".join(f"<li>{html.escape(r)}</li>" for r in v.reasons) or "<li>none</li>"
     budget = ("no error budget in the spec" if v.budget_units is None else
               f"budget {v.budget_units:g} {unit}; the arithmetic uses at most "
               f"{v.budget_used:.1%} of it")
-    cautions = "".join(f"<li>{html.escape(c)}</li>" for c in CAUTIONS)
-    return f"""<!DOCTYPE html>
-<html lang="en"><head><meta charset="utf-8">
-<title>hosttool verification: {html.escape(d.spec.name)}</title>
-<style>
-body {{ font-family: sans-serif; margin: 2em; max-width: 70em; color: #222; }}
-h1 {{ font-size: 1.4em; }} h2 {{ font-size: 1.1em; margin-top: 1.6em; }}
-table {{ border-collapse: collapse; font-size: 0.85em; }}
-td, th {{ border: 1px solid #ccc; padding: 0.25em 0.5em; text-align: left; }}
-.verdict {{ font-size: 1.3em; font-weight: bold; padding: 0.3em 0.6em; display: inline-block;
-           border: 2px solid {'#2e7d32' if v.passed else '#b00020'}; }}
-.small {{ color: #555; font-size: 0.85em; }}
-</style></head><body>
-<h1>Verification of {html.escape(d.spec.name)}</h1>
-<p class="small">hosttool {__version__}; spec SHA-256 {d.spec.sha256}; seed {v.seed};
-engines: {html.escape(", ".join(v.engines))}</p>
-<p><span class="verdict" id="verdict">{verdict}</span></p>
-<p>Proven error bound {d.error_bound_lsb:.4g} LSB ({d.error_bound_lsb * lsb:.4g} {unit})
-against the float64 reference with the realised constants; {d.ideal_error_bound_lsb:.4g} LSB
-against the ideal design; predicted RMS {d.error_rms_lsb:.3g} LSB. {html.escape(budget)}.</p>
-<h2>Reasons for failure</h2><ul>{reasons}</ul>
-<h2>Static path</h2>
-{_table(["inputs", "max |error| LSB", "bound LSB", "mean |error| LSB", "saturations",
-         "monotonic", "verdict"], static)}
-{_static_error(v)}
-<h2>Dynamic tests</h2>
-{_table(["test", "stimulus", "max |error| LSB", "bound LSB", "RMS LSB", f"max |error| {unit}",
-         "SQNR dB", "saturations", "engines agree", "verdict"], tests)}
-<h2>Magnitude response</h2>
-{_magnitude(v)}
-<h2>Step response</h2>
-{_step(v)}
-<h2>Headroom per node</h2>
-{_headroom(v)}
-<h2>Cautions</h2><ul>{cautions}</ul>
-</body></html>
-"""
+    summary = (f"Proven error bound {d.error_bound_lsb:.4g} LSB "
+               f"({d.to_units(d.error_bound_lsb):.4g} {unit}) against the float64 reference "
+               f"with the realised constants; {d.ideal_error_bound_lsb:.4g} LSB against the "
+               f"ideal design; predicted RMS {d.error_rms_lsb:.3g} LSB. {budget}.")
+    sections = [
+        _section("Static path", headers=["inputs", "max |error| LSB", "bound LSB",
+                                         "mean |error| LSB", "saturations", "monotonic",
+                                         "verdict"], rows=static,
+                 plots=(("static error against code", _static_error(v)),)),
+        _section("Dynamic tests", headers=["test", "stimulus", "max |error| LSB", "bound LSB",
+                                           "RMS LSB", f"max |error| {unit}", "SQNR dB",
+                                           "saturations", "engines agree", "verdict"],
+                 rows=tests),
+        _section("Magnitude response", plots=(("magnitude response", _magnitude(v)),)),
+        _section("Step response", plots=(("step response", _step(v)),)),
+        _section("Headroom per node", plots=(("headroom per node", _headroom(v)),)),
+    ]
+    return render_page("verify_report.html.j2", name=d.spec.name, version=__version__,
+                       sha256=d.spec.sha256, seed=v.seed, engines=", ".join(v.engines),
+                       passed=v.passed, summary=summary, reasons=list(v.reasons),
+                       sections=sections, cautions=list(CAUTIONS))
 
 
 def write_report(v: Verification, path: Path) -> Path:
