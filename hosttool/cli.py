@@ -117,7 +117,7 @@ def verify(spec: Path, calibration: Path | None, samples: int, seed: int, engine
 @main.command()
 @click.argument("spec", type=click.Path(dir_okay=False, path_type=Path))
 @click.option("-o", "--output", "folder", required=True, type=click.Path(path_type=Path),
-              help="Folder to write the headers into (must exist).")
+              help="Folder to write the headers into (created if missing).")
 @click.option("--calibration", "calibration", type=click.Path(dir_okay=False, path_type=Path),
               help="A passed unit's CAL.json: its constants become the compiled-in defaults.")
 @click.option("--force", is_flag=True,
@@ -213,7 +213,7 @@ def inspect(spec: Path, file: Path, as_json: bool) -> None:
 @click.argument("spec", type=click.Path(dir_okay=False, path_type=Path))
 @click.argument("readings", type=click.Path(dir_okay=False, path_type=Path))
 @click.option("--out", "out", required=True, type=click.Path(file_okay=False, path_type=Path),
-              help="Folder for the images (must exist).")
+              help="Folder for the images (created if missing).")
 @click.option("--db", "db", type=click.Path(dir_okay=False, path_type=Path),
               help="Production record (SQLite; default: OUT/production.sqlite).")
 @click.option("--station", "station", help="Name of this station in the record (default: "

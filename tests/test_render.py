@@ -172,10 +172,11 @@ def test_prefix_of_examples() -> None:
     assert c_prefix("hive_scale") == "HIVE_SCALE"
 
 
-def test_missing_output_folder_exit_2(tmp_path: Path) -> None:
-    code, out = _render_cli(str(EXAMPLES[0]), "-o", str(tmp_path / "missing"))
-    assert code == 2 and "output folder does not exist" in out
-    assert not (tmp_path / "missing").exists()
+def test_missing_output_folder_is_created(tmp_path: Path) -> None:
+    # More output-folder cases (a file, an unwritable parent) in tests/test_output_folders.py.
+    code, out = _render_cli(str(EXAMPLES[0]), "-o", str(tmp_path / "missing" / "include"))
+    assert code == 0, out
+    assert len(list((tmp_path / "missing" / "include").glob("*.h"))) == 2
 
 
 def _unwritable(tmp_path: Path) -> Path:

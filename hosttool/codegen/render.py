@@ -22,7 +22,7 @@ from hosttool.codegen.context import calblock_context, design_context
 from hosttool.codegen.csyntax import c_hex32, c_identifier, c_int, c_prefix, c_string, comment_text
 from hosttool.design.resolve import Design
 from hosttool.errors import OutputError
-from hosttool.util.atomic import write_atomic
+from hosttool.util.atomic import make_folder, write_atomic
 from hosttool.util.resources import templates
 
 #: Version of the generated headers' format; the firmware #errors on any other.
@@ -125,14 +125,13 @@ def write_headers(headers: tuple[Header, ...], folder: Path, *,
                   force: bool) -> list[tuple[Path, bool]]:
     """Write every header into ``folder``, all or none; (path, changed) for each.
 
-    All checks come first (folder exists; each existing file generated and unedited, unless
-    ``force``); each file is written atomically, and if one write fails the files already
-    written are put back as they were. A file whose bytes would not change is left alone
-    (its time stamp too, so a build does not recompile for nothing).
+    All checks come first (each existing file generated and unedited, unless ``force``);
+    then the folder is created with its parents if missing (refused in one line if the
+    path is a file or cannot be created). Each file is written atomically, and if one
+    write fails the files already written are put back as they were. A file whose bytes
+    would not change is left alone (its time stamp too, so a build does not recompile for
+    nothing).
     """
-    if not folder.is_dir():
-        what = "is not a folder" if folder.exists() else "does not exist"
-        raise OutputError(f"{folder}: output folder {what}")
     targets = [folder / h.name for h in headers]
     previous: dict[Path, bytes | None] = {}
     for path in targets:
@@ -143,6 +142,7 @@ def write_headers(headers: tuple[Header, ...], folder: Path, *,
         previous[path] = path.read_bytes() if path.exists() else None
     written: list[Path] = []
     results: list[tuple[Path, bool]] = []
+    make_folder(folder)
     try:
         for path, header in zip(targets, headers, strict=True):
             if previous[path] == header.text.encode("utf-8"):

@@ -52,6 +52,7 @@ from hosttool.formats.readings import (
 from hosttool.production.fit import CalibrationContext, calibrate_unit
 from hosttool.production.record import Record
 from hosttool.spec.schema import load_spec
+from hosttool.util.atomic import make_folder
 from hosttool.util.atomic_group import write_group
 from hosttool.util.cautions import SAFETY
 from hosttool.util.utctime import format_time_utc
@@ -315,8 +316,7 @@ def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: Path | Non
     ctx = CalibrationContext.of(design)
     block_area(design)
     readings = load_readings(readings_path, design.spec)
-    if not out.is_dir():
-        raise OutputError(f"--out: {out} is not an existing folder")
+    make_folder(out)
     units = list(readings.units.values())
     with _preparer(ctx, cal_time, jobs, len(units)) as prepared:
         record = Record(db if db is not None else out / "production.sqlite")

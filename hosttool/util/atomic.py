@@ -22,6 +22,27 @@ def _mode_for(path: Path) -> int:
         return 0o666 & ~umask
 
 
+def make_folder(folder: Path) -> Path:
+    """``folder``, created with its missing parents if it does not exist yet.
+
+    Refused in one line (OutputError) when the path, or a part of it, is a file, or when
+    the folder cannot be created (permissions, read-only file system).
+    """
+    if folder.is_dir():
+        return folder
+    for part in (folder, *folder.parents):
+        if part.exists() and not part.is_dir():
+            what = "exists" if part == folder else f"is inside {part}, which exists"
+            raise OutputError(f"{folder}: {what} and is not a folder")
+        if part.exists():
+            break
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OutputError(f"{folder}: cannot create the folder: {exc.strerror}") from None
+    return folder
+
+
 def write_atomic(path: str | Path, data: bytes | str) -> Path:
     """Write ``data`` to ``path`` atomically; text is UTF-8 with the newlines given."""
     path = Path(path)
