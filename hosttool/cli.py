@@ -200,7 +200,7 @@ def image(spec: Path, calibration: Path, out: Path, merge: Path | None, as_bin: 
 @guarded
 def inspect(spec: Path, file: Path, as_json: bool) -> None:
     """Decode and check the calibration block in FILE (HEX, or .bin from image --bin)."""
-    from hosttool.commands.image import run_inspect
+    from hosttool.commands.inspect import run_inspect
 
     data, text = run_inspect(spec, file, as_json=as_json)
     if as_json:

@@ -37,3 +37,19 @@ class InputError(HostToolError):
 
 class OutputError(HostToolError):
     """An output that cannot be written (missing or read-only folder, refused overwrite)."""
+
+
+class CBuildError(HostToolError):
+    """Building or running a firmware program failed."""
+
+
+class ToolchainMissing(CBuildError):
+    """A compiler or emulator the build kind needs is not on PATH."""
+
+
+class BuildFailed(CBuildError):
+    """The compiler refused the sources; the message carries its output."""
+
+
+class RunTimedOut(CBuildError):
+    """A program did not finish within its time limit."""

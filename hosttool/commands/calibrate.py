@@ -34,7 +34,7 @@ def _g(value: float | None, digits: int = 4) -> str:
     return "-" if value is None else f"{value:.{digits}g}"
 
 
-def constant_rows(design: Design, c: UnitConstants) -> list[tuple[str, int, str]]:
+def unit_constant_rows(design: Design, c: UnitConstants) -> list[tuple[str, int, str]]:
     """(name, integer, real value with unit) of every per-unit constant."""
     spec = design.spec
     unit = spec.sensor.unit
@@ -53,8 +53,8 @@ def constant_rows(design: Design, c: UnitConstants) -> list[tuple[str, int, str]
     tc = design.temperature
     if tc is not None:
         fs_lsb = spec.sensor.full_scale / spec.output.resolution
-        alpha = c.tc_zero / 2 ** tc.zero_shift
-        gamma = c.tc_span / 2 ** (tc.span_shift + LIN_FRAC)
+        alpha = tc.realised_zero(c.tc_zero)
+        gamma = tc.realised_span(c.tc_span)
         rows.append(("tc_zero", c.tc_zero, f"{alpha:.6g} LSB per 0.01 C = "
                                            f"{alpha * 100 / fs_lsb * 1e6:.4g} ppm FS/C removed"))
         rows.append(("tc_span", c.tc_span, f"{gamma:.6g} per 0.01 C = "
@@ -81,7 +81,7 @@ def calibration_text(result: UnitCalibration, design: Design, *, readings: str) 
     rounding = {r.constant: r for r in result.rounding}
     lines += ["", "Constants (integers in the design's formats)", "-" * 44]
     rows = [("constant", "integer", "real value", "rounding adds")]
-    for name, value, real in constant_rows(design, result.constants):
+    for name, value, real in unit_constant_rows(design, result.constants):
         adds = rounding[name].adds if name in rounding else None
         rows.append((name, str(value), real, f"{_g(adds, 3)} {unit}"))
     lines += columns(rows, (False, True, False, True))

@@ -12,7 +12,7 @@ import numpy as np
 from hosttool.codegen.render import render_headers, write_headers
 from hosttool.commands.check import budget_json, budget_text
 from hosttool.commands.design import design_json, design_text
-from hosttool.commands.image import run_inspect
+from hosttool.commands.inspect import run_inspect
 from hosttool.commands.verify import verify_text
 from hosttool.design.budget import compute_budget
 from hosttool.design.model import run_integer

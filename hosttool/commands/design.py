@@ -18,7 +18,7 @@ def _q(word: int, frac: int) -> str:
     return QFormat(word, frac).name
 
 
-def constants_rows(d: Design) -> list[tuple[str, float, int, str, str]]:
+def design_constant_rows(d: Design) -> list[tuple[str, float, int, str, str]]:
     """(name, real value, integer, Q format, note) for every constant the firmware uses."""
     c, g = d.constants, d.guard_bits
     rows: list[tuple[str, float, int, str, str]] = [
@@ -46,9 +46,9 @@ def constants_rows(d: Design) -> list[tuple[str, float, int, str, str]]:
                          f"design {real:.10g}, variable s / 2^{d.linearisation.norm_shift}"))
     if d.temperature is not None:
         tc = d.temperature
-        rows.append(("tc_zero", c.tc_zero / 2 ** tc.zero_shift, c.tc_zero,
+        rows.append(("tc_zero", tc.realised_zero(c.tc_zero), c.tc_zero,
                      _q(32, tc.zero_shift), "output LSB per 0.01 C"))
-        rows.append(("tc_span", c.tc_span / 2 ** tc.span_shift / 2 ** LIN_FRAC, c.tc_span,
+        rows.append(("tc_span", tc.realised_span(c.tc_span), c.tc_span,
                      _q(32, tc.span_shift + LIN_FRAC), "gain per 0.01 C"))
     return rows
 
@@ -76,7 +76,7 @@ def design_json(d: Design) -> dict[str, Any]:
         "decimation": d.decimation, "output_rate_hz": d.output_rate_hz,
         "output_lsb": d.spec.output.resolution, "unit": d.spec.sensor.unit,
         "constants": [{"name": n, "value": v, "integer": i, "format": f, "note": note}
-                      for n, v, i, f, note in constants_rows(d)],
+                      for n, v, i, f, note in design_constant_rows(d)],
         "unit_constants": dataclasses.asdict(c) | {"lin": list(c.lin)},
         "stages": stages,
         "scale": {"multiplier": c.scale_mul, "shift": d.scale.shift,
@@ -116,7 +116,7 @@ def _finite(value: Any) -> Any:
 def design_text(d: Design, *, with_warnings: bool = True) -> str:
     """The readable tables of ``hosttool design`` (warnings last, if asked)."""
     unit = d.spec.sensor.unit
-    lsb = d.spec.output.resolution
+    lsb = d.output_step
     chain: list[Row] = [
         ("ADC codes", f"{d.spec.adc.bits} bits", f"{d.spec.adc.data_rate_sps:g} samples/s"),
         ("guard bits G", f"{d.guard_bits}", f"chain word = counts x 2^{d.guard_bits}, int32"),
@@ -124,21 +124,21 @@ def design_text(d: Design, *, with_warnings: bool = True) -> str:
         ("decimation", f"{d.decimation}", f"output {d.output_rate_hz:g} samples/s"),
         ("output LSB", f"{lsb:g} {unit}", f"bound {d.output_bound_lsb:.4g} LSB before saturation"),
         ("ADC noise at the output", f"{d.output_noise_rms_lsb:.3g} LSB RMS",
-         f"noise-free {PEAK_TO_PEAK_OVER_RMS * d.output_noise_rms_lsb * lsb:.3g} {unit} "
+         f"noise-free {d.to_units(PEAK_TO_PEAK_OVER_RMS * d.output_noise_rms_lsb):.3g} {unit} "
          f"(6.6 x RMS; at the ADC {d.budget.noise_free_resolution:.3g} {unit})"),
     ]
     consts: list[Row] = [(n, f"{i}", f"{f}  = {v:.10g}  {note}")
-                         for n, v, i, f, note in constants_rows(d)]
+                         for n, v, i, f, note in design_constant_rows(d)]
     nodes: list[Row] = [(n.name, f"{n.bound:.4g}", f"int{n.word}, headroom "
                          f"{n.headroom_bits:.2f} bits, {n.rate_hz:g} Hz") for n in d.all_nodes]
     errs: list[Row] = [(e.name, f"{e.worst_lsb:.4g} LSB", f"RMS {e.rms_lsb:.3g} LSB")
                        for e in d.errors]
     errs.append(("total, proven", f"{d.error_bound_lsb:.4g} LSB",
-                 f"= {d.error_bound_lsb * lsb:.4g} {unit}; predicted RMS "
+                 f"= {d.to_units(d.error_bound_lsb):.4g} {unit}; predicted RMS "
                  f"{d.error_rms_lsb:.3g} LSB"))
     ideal: list[Row] = [(e.name, f"{e.worst_lsb:.4g} LSB", "") for e in d.design_errors]
     ideal.append(("total against the ideal design", f"{d.ideal_error_bound_lsb:.4g} LSB",
-                  f"= {d.ideal_error_bound_lsb * lsb:.4g} {unit}"))
+                  f"= {d.to_units(d.ideal_error_bound_lsb):.4g} {unit}"))
     parts = [f"{d.spec.name}: fixed-point design (spec sha256 {d.spec.sha256[:16]}...)",
              table("Chain", chain), table("Constants", consts),
              table("Headroom (worst case over the whole ADC range)", nodes),

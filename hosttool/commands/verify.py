@@ -41,8 +41,8 @@ def verify_json(v: Verification) -> dict[str, Any]:
         "tests": [{"name": t.name, "description": t.description, "samples": t.samples,
                    "outputs": t.outputs, "max_error_lsb": t.max_error_lsb,
                    "rms_error_lsb": t.rms_error_lsb,
-                   "max_error": t.max_error_lsb * d.spec.output.resolution,
-                   "rms_error": t.rms_error_lsb * d.spec.output.resolution,
+                   "max_error": d.to_units(t.max_error_lsb),
+                   "rms_error": d.to_units(t.rms_error_lsb),
                    "bound_lsb": t.bound_lsb, "sqnr_db": t.sqnr_db, "enob_bits": t.enob_bits,
                    "saturations": t.saturations, "peaks": t.peaks,
                    "engines_agree": t.engines_agree, "figures": t.figures,
@@ -55,7 +55,7 @@ def verify_json(v: Verification) -> dict[str, Any]:
 def verify_text(v: Verification) -> str:
     """The verdict and one row per test."""
     d = v.design
-    unit, lsb = d.spec.sensor.unit, d.spec.output.resolution
+    unit = d.spec.sensor.unit
     s = v.static
     temps = ", ".join(f"{t:g}" for t in s.temperatures_c) or "none"
     static_rows: list[Row] = [
@@ -79,9 +79,10 @@ def verify_text(v: Verification) -> str:
                           f"{sat} saturations{agree}{extra}"))
     summary: list[Row] = [
         ("engines", ", ".join(v.engines), "must agree bit for bit"),
-        ("proven bound", f"{d.error_bound_lsb:.4g} LSB", f"= {d.error_bound_lsb * lsb:.4g} {unit}"),
+        ("proven bound", f"{d.error_bound_lsb:.4g} LSB",
+         f"= {d.to_units(d.error_bound_lsb):.4g} {unit}"),
         ("against the ideal design", f"{d.ideal_error_bound_lsb:.4g} LSB",
-         f"= {d.ideal_error_bound_lsb * lsb:.4g} {unit}"),
+         f"= {d.to_units(d.ideal_error_bound_lsb):.4g} {unit}"),
         ("error budget", "-" if v.budget_units is None else f"{v.budget_units:g} {unit}",
          "" if v.budget_used is None else f"{v.budget_used:.1%} used by the arithmetic"),
         ("VERDICT", "PASS" if v.passed else "FAIL", "; ".join(v.reasons)),

@@ -208,8 +208,8 @@ def _static_float(design: Design, v: F64, temps: I64 | None, constants: UnitCons
     if tc is not None:
         t = np.full(s.shape, tc.reference_centi, dtype=np.int64) if temps is None else temps
         dt = (np.clip(t, tc.min_centi, tc.max_centi) - tc.reference_centi).astype(np.float64)
-        alpha = constants.tc_zero / 2.0 ** tc.zero_shift
-        gamma = constants.tc_span / 2.0 ** tc.span_shift / 2.0 ** LIN_FRAC
+        alpha = tc.realised_zero(constants.tc_zero)
+        gamma = tc.realised_span(constants.tc_span)
         s = (s - alpha * dt) * (1.0 + gamma * dt)
     return np.clip(s, INT32_MIN, INT32_MAX)
 

@@ -195,6 +195,11 @@ class Design:
         """Output samples per second."""
         return self.spec.adc.data_rate_sps / self.decimation
 
+    def check_unit(self, constants: UnitConstants, source: str) -> None:
+        """Refuse (DesignError naming ``source``) constants outside this design's formats."""
+        check_constants(constants, bits=self.spec.adc.bits, g=self.guard_bits, scale=self.scale,
+                        lin=self.linearisation, temp=self.temperature, source=source)
+
     def with_constants(self, constants: UnitConstants) -> Design:
         """The same design carrying one unit's constants (bounds recomputed for them).
 

@@ -25,7 +25,7 @@ from dataclasses import dataclass
 from importlib.abc import Traversable
 from pathlib import Path
 
-from hosttool.errors import HostToolError
+from hosttool.errors import BuildFailed, CBuildError, RunTimedOut, ToolchainMissing
 from hosttool.util.resources import firmware_sources
 
 COMMON_FLAGS: tuple[str, ...] = ("-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic")
@@ -84,22 +84,6 @@ class RunResult:
     returncode: int
     stdout: bytes
     stderr: bytes
-
-
-class CBuildError(HostToolError):
-    """Building or running a firmware program failed."""
-
-
-class ToolchainMissing(CBuildError):
-    """A compiler or emulator the build kind needs is not on PATH."""
-
-
-class BuildFailed(CBuildError):
-    """The compiler refused the sources; the message carries its output."""
-
-
-class RunTimedOut(CBuildError):
-    """A program did not finish within its time limit."""
 
 
 def _kind(kind: str) -> Kind:

@@ -200,7 +200,7 @@ def check_against(block: CalBlock, design: Design, source: str) -> None:
         raise InputError(f"{source}: the block's (coefficients, flags, reference temperature) "
                          f"{found_layout} differ from the design's {layout}")
     try:
-        design.with_constants(block.constants)
+        design.check_unit(block.constants, source)
     except DesignError as exc:
         raise InputError(f"{source}: the block's constants are outside the design's formats: "
                          f"{exc}") from None

@@ -15,7 +15,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from hosttool.design.resolve import Design, UnitConstants, check_constants
+from hosttool.design.resolve import Design, UnitConstants
 from hosttool.errors import InputError
 from hosttool.formats.readings import SERIAL_RE
 from hosttool.util.utctime import parse_time_utc
@@ -117,9 +117,7 @@ def read_passed(path: Path, design: Design) -> CalRecord:
     if record.verdict != "pass":
         raise InputError(f"{path}: verdict: the unit {record.serial} failed its limits; its "
                          "constants must not go into a unit")
-    check_constants(record.constants, bits=design.spec.adc.bits, g=design.guard_bits,
-                    scale=design.scale, lin=design.linearisation, temp=design.temperature,
-                    source=str(path))
+    design.check_unit(record.constants, str(path))
     return record
 
 

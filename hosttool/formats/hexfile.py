@@ -16,7 +16,14 @@ from intelhex import IntelHex, IntelHexError
 
 from hosttool.design.resolve import Design
 from hosttool.errors import DesignError, InputError
-from hosttool.formats.calblock import BLOCK_SIZE, check_area_size
+from hosttool.formats.calblock import (
+    BLOCK_SIZE,
+    CalBlock,
+    check_against,
+    check_area_size,
+    decode,
+    encode,
+)
 
 ERASED = 0xFF
 
@@ -106,3 +113,21 @@ def read_area(path: Path, design: Design) -> bytes:
         raise InputError(f"{path}: no data at 0x{missing:08X}: the calibration block "
                          f"(0x{address:08X}, {BLOCK_SIZE} bytes) is not in this image")
     return bytes(present.get(a, ERASED) for a in range(address, address + size))
+
+
+def read_block(path: Path, design: Design) -> tuple[CalBlock, bytes]:
+    """Decode and check the block in an image: CRC, layout, spec hash, formats, and that
+    encoding the decoded block gives back exactly the same bytes."""
+    area = read_area(path, design)
+    try:
+        block = decode(area)
+    except InputError as exc:
+        raise InputError(f"{path}: {exc}") from None
+    check_against(block, design, str(path))     # layout, formats and constants
+    again = encode(design, block.constants, serial=block.serial,
+                   cal_time_utc=block.cal_time_utc)
+    if again != area[:BLOCK_SIZE]:
+        raise InputError(f"{path}: the block decodes but differs from what this design "
+                         "encodes for its contents (flags, reference temperature or reserved "
+                         "bytes)")
+    return block, area

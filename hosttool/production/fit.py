@@ -362,8 +362,8 @@ def _constants(ctx: CalibrationContext, u: UnitReadings, fit: _Fit
         if tc is not None:
             dt = np.clip(np.rint(u.temperature_c * 100), tc.min_centi, tc.max_centi) \
                 - tc.reference_centi
-            gamma = tc_span / 2.0 ** (tc.span_shift + LIN_FRAC)
-            target = target / (1 + gamma * dt) + tc_zero / 2.0 ** tc.zero_shift * dt
+            gamma = tc.realised_span(tc_span)
+            target = target / (1 + gamma * dt) + tc.realised_zero(tc_zero) * dt
         coeffs = np.polynomial.polynomial.polyfit(w, target / 2.0 ** k_norm,
                                                   d.spec.linearisation.order)
         for k, c in enumerate(coeffs):

@@ -329,10 +329,10 @@ def verify_design(design: Design, *, samples: int = LONG_RUN_MIN, seed: int = 0,
     used = None
     reasons: list[str] = []
     if budget is not None:
-        used = design.ideal_error_bound_lsb * design.spec.output.resolution / budget
+        used = design.to_units(design.ideal_error_bound_lsb) / budget
         if used > 1:
             reasons.append(f"the arithmetic alone may err by "
-                           f"{design.ideal_error_bound_lsb * design.spec.output.resolution:.4g} "
+                           f"{design.to_units(design.ideal_error_bound_lsb):.4g} "
                            f"{design.spec.sensor.unit}, more than the budget {budget:g}")
     if not static.passed:
         reasons.append(_static_reason(static))
