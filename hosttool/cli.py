@@ -230,8 +230,9 @@ def inspect(spec: Path, file: Path, as_json: bool) -> None:
 def batch(spec: Path, readings: Path, out: Path, db: Path | None, station: str | None,
           recalibrate: bool, cal_time: str | None, jobs: int) -> None:
     """Calibrate, image and record a lot (exit 0 all passed, 1 some failed, 2 bad input)."""
+    from hosttool.commands.batch import batch_text
     from hosttool.commands.calibrate import cal_time_option
-    from hosttool.production.batch import batch_text, run_batch
+    from hosttool.production.batch import run_batch
 
     def progress(stream: Any, count: int) -> Any:
         with click.progressbar(stream, length=count, label="units", file=sys.stderr) as bar:

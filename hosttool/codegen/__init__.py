@@ -1,1 +1,3 @@
-"""codegen"""
+"""C headers rendered from a Design through jinja2 templates: context, C syntax, deterministic
+writing.
+"""

@@ -1,1 +1,3 @@
-"""production"""
+"""The production line: per-unit fit and verdict, batch of a lot, the durable production
+record, synthetic lots.
+"""

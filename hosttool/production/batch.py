@@ -54,7 +54,6 @@ from hosttool.production.record import Record
 from hosttool.spec.schema import load_spec
 from hosttool.util.atomic import make_folder
 from hosttool.util.atomic_group import write_group
-from hosttool.util.cautions import SAFETY
 from hosttool.util.utctime import format_time_utc
 
 #: Units handed to a worker process at a time (with jobs > 1).
@@ -334,22 +333,3 @@ def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: Path | Non
         finally:
             record.close()
     return BatchSummary(design.spec.name, outcomes)
-
-
-def batch_text(summary: BatchSummary, *, readings: str, out: Path) -> str:
-    """The summary of a batch: counts, then one line per unit that did not pass."""
-    counts = {s: sum(o.status == s for o in summary.outcomes) for s in ("pass", "fail",
-                                                                          "refused")}
-    new = sum(o.new for o in summary.outcomes)
-    lines = [f"{summary.spec_name}: batch of {len(summary.outcomes)} units from {readings}",
-             f"  passed   {counts['pass']:6d}  (images in {out})",
-             f"  failed   {counts['fail']:6d}  (no image)",
-             f"  refused  {counts['refused']:6d}  (not recorded: fix the readings or the "
-             "record)",
-             f"  {new} rows added to the record; "
-             f"{len(summary.outcomes) - new - counts['refused']} units were already recorded"]
-    for o in summary.outcomes:
-        if o.status != "pass":
-            lines.append(f"  {o.serial}: {o.status.upper()}: {o.reason}")
-    lines += [""] + [f"caution: {text}" for text in SAFETY]
-    return "\n".join(lines) + "\n"

@@ -1,1 +1,3 @@
-"""spec"""
+"""The validated bridge specification: TOML read into frozen dataclasses, every value checked
+once.
+"""
