@@ -97,11 +97,24 @@ static inline int32_t ht_biquad_step(int32_t *x1, int32_t *x2, int32_t *y1, int3
     return y;
 }
 
-/* Steps 3 to 5 on one filtered chain word v: scale, linearisation, temperature. */
-static int32_t ht_static_path(const ht_constants_t *c, int32_t v, int32_t temp_centi)
+/* sat32(x), and *clamped set when the value had to be clamped. */
+static inline int32_t ht_sat32_flag(int64_t x, bool *clamped)
 {
-    int32_t s = ht_sat32(ht_round_shift((int64_t)v * c->scale_mul,
-                                        (unsigned)HT_D(SCALE_SHIFT)));
+    int32_t y = ht_sat32(x);
+
+    *clamped = *clamped || y != x;
+    return y;
+}
+
+/*
+ * Steps 3 to 5 on one filtered chain word v: scale, linearisation, temperature; *clamped
+ * is set when one of their saturations changed a value.
+ */
+static int32_t ht_static_path(const ht_constants_t *c, int32_t v, int32_t temp_centi,
+                              bool *clamped)
+{
+    int32_t s = ht_sat32_flag(ht_round_shift((int64_t)v * c->scale_mul,
+                                             (unsigned)HT_D(SCALE_SHIFT)), clamped);
 #if HT_D(HAS_LINEARISATION)
     {
         const unsigned k_norm = HT_LIN_FRAC - (unsigned)HT_D(LIN_NORM_SHIFT);
@@ -112,7 +125,7 @@ static int32_t ht_static_path(const ht_constants_t *c, int32_t v, int32_t temp_c
         for (i = HT_D(LIN_COUNT) - 2; i >= 0; --i) {
             acc = ht_round_shift(acc * w, HT_LIN_FRAC) + c->lin[i];
         }
-        s = ht_sat32(ht_round_shift(acc, k_norm));
+        s = ht_sat32_flag(ht_round_shift(acc, k_norm), clamped);
     }
 #endif
 #if HT_D(HAS_TEMPERATURE)
@@ -129,7 +142,7 @@ static int32_t ht_static_path(const ht_constants_t *c, int32_t v, int32_t temp_c
         z = ht_round_shift((int64_t)c->tc_zero * dt, (unsigned)HT_D(TC_ZERO_SHIFT));
         s1 = (int64_t)s - z;
         g = ht_round_shift((int64_t)c->tc_span * dt, (unsigned)HT_D(TC_SPAN_SHIFT));
-        s = ht_sat32(s1 + ht_round_shift(s1 * g, HT_LIN_FRAC));
+        s = ht_sat32_flag(s1 + ht_round_shift(s1 * g, HT_LIN_FRAC), clamped);
     }
 #else
     (void)temp_centi;
@@ -180,7 +193,7 @@ void ht_constants_default(ht_constants_t *c)
 void ht_pipeline_reset(ht_pipeline_t *p)
 {
     HT_D(CASCADE)(HT_FIR_RESET, HT_BIQUAD_RESET)
-    (void)p;
+    p->pending = 0u;
 }
 
 void ht_pipeline_init(ht_pipeline_t *p)
@@ -194,19 +207,36 @@ void ht_pipeline_init(ht_pipeline_t *p)
 #define HT_FIR_RUN(stage, taps, length, frac, decimation)                                 \
     if (!ht_fir_step(p->fir##stage.line, &p->fir##stage.pos, &p->fir##stage.phase, taps, \
                      (uint32_t)(length), (unsigned)(frac), (uint32_t)(decimation), &v)) { \
-        return false;                                                                     \
+        p->pending = status;                                                              \
+        return 0u;                                                                        \
     }
 #define HT_BIQUAD_RUN(stage, section, b0, b1, b2, a1, a2, q)                           \
     v = ht_biquad_step(&p->biquad##stage##_##section.x1, &p->biquad##stage##_##section.x2, \
                        &p->biquad##stage##_##section.y1, &p->biquad##stage##_##section.y2, \
                        &p->biquad##stage##_##section.e, b0, b1, b2, a1, a2, (unsigned)(q), v);
 
-bool ht_process(ht_pipeline_t *p, int32_t code, int32_t temp_centi, int32_t *out)
+ht_status_t ht_process(ht_pipeline_t *p, int32_t code, int32_t temp_centi, int32_t *out)
 {
-    int32_t v = ht_sat32((int64_t)code * ht_pow2((unsigned)HT_D(GUARD_BITS))
-                         - p->constants.offset);
+    ht_status_t status = p->pending;
+    bool clamped = false;
+    int32_t v;
 
+    if (code >= HT_D(ADC_CODE_HIGHEST)) {
+        code = HT_D(ADC_CODE_HIGHEST);
+        status |= HT_STATUS_INPUT_RAIL;
+    } else if (code <= HT_D(ADC_CODE_LOWEST)) {
+        code = HT_D(ADC_CODE_LOWEST);
+        status |= HT_STATUS_INPUT_RAIL;
+    }
+    v = ht_sat32((int64_t)code * ht_pow2((unsigned)HT_D(GUARD_BITS)) - p->constants.offset);
     HT_D(CASCADE)(HT_FIR_RUN, HT_BIQUAD_RUN)
-    *out = ht_static_path(&p->constants, v, temp_centi);
-    return true;
+    *out = ht_static_path(&p->constants, v, temp_centi, &clamped);
+    p->pending = 0u;
+    if (clamped) {
+        status |= HT_STATUS_SATURATED;
+    }
+    if (!p->calibrated) {
+        status |= HT_STATUS_UNCALIBRATED;
+    }
+    return status | HT_STATUS_READY;
 }

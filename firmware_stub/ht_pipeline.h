@@ -12,9 +12,16 @@
  *   HT_DESIGN_HEADER  the generated design header as a string literal,
  *                     e.g. -DHT_DESIGN_HEADER='"hive_scale_design.h"'
  *   HT_DESIGN_PREFIX  the prefix of its names, e.g. -DHT_DESIGN_PREFIX=HIVE_SCALE
+ *   HT_NAME_PREFIX    optional: the prefix of the firmware's public functions and types
+ *                     instead of ht_, e.g. -DHT_NAME_PREFIX=hive_ turns ht_process into
+ *                     hive_process and ht_pipeline_t into hive_pipeline_t. Two specs then
+ *                     build into one program: compile ht_pipeline.c and ht_calblock.c once
+ *                     per spec, each with its own three macros, and ht_crc32.c once. Code
+ *                     compiled with the same macros may keep writing the ht_ names.
  *
  * Use: ht_pipeline_init() once (compiled-in defaults, uncalibrated), optionally
- * ht_calblock_load() (ht_calblock.h), then ht_process() for each raw ADC code.
+ * ht_calblock_load() (ht_calblock.h), then ht_process() for each raw ADC code; the status
+ * word it returns says whether an output is ready and whether it can be trusted.
  */
 #ifndef HT_PIPELINE_H
 #define HT_PIPELINE_H
@@ -34,6 +41,38 @@
 #define HT_CAT_(a, b) a##b
 #define HT_CAT(a, b) HT_CAT_(a, b)
 #define HT_D(name) HT_CAT(HT_DESIGN_PREFIX, _##name)
+
+/* The public names under HT_NAME_PREFIX (see above); ht_ names when it is not defined. */
+#ifdef HT_NAME_PREFIX
+#define HT_NAME(name) HT_CAT(HT_NAME_PREFIX, name)
+#define ht_constants_t HT_NAME(constants_t)
+#define ht_pipeline_t HT_NAME(pipeline_t)
+#define ht_constants_default HT_NAME(constants_default)
+#define ht_pipeline_init HT_NAME(pipeline_init)
+#define ht_pipeline_reset HT_NAME(pipeline_reset)
+#define ht_process HT_NAME(process)
+#define ht_cal_status_t HT_NAME(cal_status_t)
+#define ht_calblock_load HT_NAME(calblock_load)
+#define ht_cal_status_text HT_NAME(cal_status_text)
+#endif
+
+/*
+ * The status word ht_process() returns: zero while no output is ready (a decimating stage
+ * waits for more inputs), else HT_STATUS_READY and any of the flags below, which describe
+ * the output just stored.
+ */
+typedef uint32_t ht_status_t;
+/* *out holds a new output sample. */
+#define HT_STATUS_READY 0x01u
+/* The compiled-in default constants are in force: no valid calibration block was loaded
+ * (ht_calblock_load() refused it, or was never called); the output is not this unit's. */
+#define HT_STATUS_UNCALIBRATED 0x02u
+/* An input code at or beyond the ADC's lowest or highest code arrived since the previous
+ * output (codes beyond are taken as the rail): the converter was overloaded. */
+#define HT_STATUS_INPUT_RAIL 0x04u
+/* A saturation clamped a value on the way to this output: it is the nearest int32, not
+ * the true result. Only the steps whose range proof allows it can set this flag. */
+#define HT_STATUS_SATURATED 0x08u
 
 /* The header format this firmware is written for. */
 #define HT_DESIGN_FORMAT_EXPECTED 1
@@ -79,6 +118,7 @@ typedef struct {
 typedef struct {
     ht_constants_t constants;
     bool calibrated;          /* constants from a valid calibration block */
+    ht_status_t pending;      /* flags of the inputs since the last output */
     HT_D(CASCADE)(HT_FIR_STATE, HT_BIQUAD_STATE)
 } ht_pipeline_t;
 
@@ -93,10 +133,12 @@ void ht_pipeline_reset(ht_pipeline_t *p);
 
 /*
  * Feed one raw code (int32, sign-extended ADC code) and the temperature in 0.01 C that
- * goes with it (ignored by designs without temperature compensation). Returns true when
- * an output sample is ready and stores it in *out, in output LSB; returns false while a
- * decimating stage waits for more inputs (*out untouched).
+ * goes with it (ignored by designs without temperature compensation). When an output
+ * sample is ready, stores it in *out (output LSB) and returns HT_STATUS_READY with the
+ * flags that apply to it; returns 0 while a decimating stage waits for more inputs (*out
+ * untouched). `if (ht_process(...))` therefore still reads "an output is ready".
  */
-HT_MUST_USE bool ht_process(ht_pipeline_t *p, int32_t code, int32_t temp_centi, int32_t *out);
+HT_MUST_USE ht_status_t ht_process(ht_pipeline_t *p, int32_t code, int32_t temp_centi,
+                                   int32_t *out);
 
 #endif /* HT_PIPELINE_H */

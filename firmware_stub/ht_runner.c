@@ -7,8 +7,9 @@
  *     cal <hex>               load a calibration block given as hex digit pairs; the
  *                             outcome goes to stderr as "ht_runner: calblock <status>,
  *                             calibrated <0|1>"; filters are reset
- * Output: one decimal line on stdout per output sample, in output LSB. At the end one
- * summary line on stderr:
+ * Output: one line on stdout per output sample: the value in output LSB (decimal) and the
+ * status word of ht_process() (ht_pipeline.h) as "0x" and two hex digits, for example
+ * "18656 0x03" (ready, uncalibrated). At the end one summary line on stderr:
  *     ht_runner: samples <n> outputs <n>[ ticks <n> empty_ticks <n>]
  * The ticks (target builds with HT_HAVE_CYCLES) are SysTick ticks spent inside
  * ht_process() over all samples, each call timed by two ht_cycles_read(); empty_ticks is
@@ -106,16 +107,22 @@ HT_MUST_USE static int ht_runner_int(const char **s, int32_t *value)
     return 0;
 }
 
-/* Write `value` and LF to stdout; returns EOF on a write error. */
-static int ht_runner_print(int32_t value)
+/* Write `value`, its status word and LF to stdout; returns EOF on a write error. */
+static int ht_runner_print(int32_t value, ht_status_t status)
 {
-    char text[13];
+    static const char digits[] = "0123456789abcdef";
+    char text[20];
     size_t at = sizeof text - 1u;
     int64_t v = value;
     uint64_t u = (uint64_t)(v < 0 ? -v : v);
 
     text[at] = '\0';
     text[--at] = '\n';
+    text[--at] = digits[status & 0xFu];
+    text[--at] = digits[(status >> 4) & 0xFu];
+    text[--at] = 'x';
+    text[--at] = '0';
+    text[--at] = ' ';
     do {
         text[--at] = (char)('0' + (int)(u % 10u));
         u /= 10u;
@@ -152,14 +159,14 @@ HT_MUST_USE static ht_line_t ht_runner_cal(const char *hex)
 }
 
 /* The pipeline on one sample, timed on targets. */
-HT_MUST_USE static bool ht_runner_process(int32_t code, int32_t temp, int32_t *out)
+HT_MUST_USE static ht_status_t ht_runner_process(int32_t code, int32_t temp, int32_t *out)
 {
 #ifdef HT_HAVE_CYCLES
     uint64_t t0 = ht_cycles_read();
-    bool ready = ht_process(&ht_runner.pipeline, code, temp, out);
+    ht_status_t status = ht_process(&ht_runner.pipeline, code, temp, out);
     uint64_t t1 = ht_cycles_read();
     ht_runner.ticks += t1 - t0;
-    return ready;
+    return status;
 #else
     return ht_process(&ht_runner.pipeline, code, temp, out);
 #endif
@@ -171,6 +178,7 @@ HT_MUST_USE static ht_line_t ht_runner_sample(const char *s)
     int32_t code;
     int32_t temp = HT_RUNNER_TEMP_DEFAULT;
     int32_t out;
+    ht_status_t status;
 
     if (ht_runner_int(&s, &code) != 0) {
         return HT_LINE_MALFORMED;
@@ -188,11 +196,12 @@ HT_MUST_USE static ht_line_t ht_runner_sample(const char *s)
         return HT_LINE_MALFORMED;
     }
     ++ht_runner.samples;
-    if (!ht_runner_process(code, temp, &out)) {
+    status = ht_runner_process(code, temp, &out);
+    if (status == 0u) {
         return HT_LINE_DONE;
     }
     ++ht_runner.outputs;
-    return ht_runner_print(out) == EOF ? HT_LINE_WRITE_ERROR : HT_LINE_DONE;
+    return ht_runner_print(out, status) == EOF ? HT_LINE_WRITE_ERROR : HT_LINE_DONE;
 }
 
 /* As many empty timed intervals as samples: the overhead inside ht_runner.ticks. */

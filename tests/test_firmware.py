@@ -25,7 +25,12 @@ from conftest import require_tools
 from hosttool.cli import main
 from hosttool.codegen.render import firmware_defines, render_headers, write_headers
 from hosttool.design.fixedpoint import quantise
-from hosttool.design.model import run_integer
+from hosttool.design.model import (
+    STATUS_INPUT_RAIL,
+    STATUS_SATURATED,
+    STATUS_UNCALIBRATED,
+    run_integer,
+)
 from hosttool.design.resolve import Design, UnitConstants, make_design
 from hosttool.errors import HostToolError
 from hosttool.firmware import build as cbuild
@@ -147,6 +152,7 @@ def test_host_bit_exact_nominal(name: str, host_runners: dict[str, Built]) -> No
         model = run_integer(d, codes, temps)
         assert got.output.size == codes.size // d.decimation, label
         assert np.array_equal(got.output, model.output), label
+        assert np.array_equal(got.status, model.status(calibrated=False)), label
         assert "calblock" not in got.stderr
 
 
@@ -157,8 +163,9 @@ def test_host_bit_exact_calibrated(name: str, host_runners: dict[str, Built]) ->
     for label, (codes, temps) in vectors(d, long_run=100_000, seed=11).items():
         got = host_runners[name](codes, temps, block(d, unit))
         assert "calblock ok, calibrated 1" in got.stderr
-        assert np.array_equal(got.output, run_integer(d.with_constants(unit), codes,
-                                                      temps).output), label
+        model = run_integer(d.with_constants(unit), codes, temps)
+        assert np.array_equal(got.output, model.output), label
+        assert np.array_equal(got.status, model.status(calibrated=True)), label
 
 
 @pytest.mark.parametrize("name", sorted(DESIGNS))
@@ -212,10 +219,45 @@ def test_loader_falls_back_to_defaults(name: str, host_runners: dict[str, Built]
         got = host_runners[name](codes, temps, data)
         assert f"calblock {status}, calibrated 0" in got.stderr, label
         assert np.array_equal(got.output, nominal), label
+        assert np.all(got.status & STATUS_UNCALIBRATED), label
         with pytest.raises(HostToolError):   # the Python side refuses it too
             found = calblock.decode(data)
             calblock.check_against(found, d, "test")
             d.with_constants(found.constants)
+
+
+@pytest.mark.parametrize("name", sorted(DESIGNS))
+def test_codes_beyond_the_adc_range_count_as_the_rail(name: str,
+                                                      host_runners: dict[str, Built]) -> None:
+    # A code the ADC cannot give (a caller that did not sign-extend, say) is taken as the
+    # nearest end of the range and flagged; the arithmetic stays defined (sanitizer build).
+    d = DESIGNS[name]
+    limit = 1 << (d.spec.adc.bits - 1)
+    wild = np.array([limit, (1 << 31) - 1, -(1 << 31), -limit - 1, 2 * limit - 1] * 40)
+    got = host_runners[name](wild, None)
+    model = run_integer(d, np.clip(wild, -limit, limit - 1))
+    assert np.array_equal(got.output, model.output)
+    assert np.array_equal(got.status, model.status(calibrated=False))
+    assert np.all(got.status & STATUS_INPUT_RAIL)
+
+
+def test_status_word_flags_saturated_outputs(tmp_path: Path) -> None:
+    # An output step of 0.2 mg puts inputs beyond the sensor range past the int32 limits
+    # (the design warns so); those outputs carry the saturation flag, the others do not.
+    require_tools("host", run=True)
+    spec = tmp_path / "hive_scale.toml"
+    spec.write_text((EXAMPLES[[p.stem for p in EXAMPLES].index("hive_scale")]).read_text()
+                    .replace("resolution = 0.01  ", "resolution = 0.0000002"))
+    d = make_design(load_spec(spec))
+    assert any("saturate at the int32 limits" in w for w in d.warnings)
+    limit = 1 << (d.spec.adc.bits - 1)
+    codes = np.repeat(np.array([0, limit - 1, limit // 4, -limit, 1000]), 60)
+    model = run_integer(d, codes)
+    assert model.clamped.any() and not model.clamped.all()
+    got = run_runner(build_runner(d, "host", tmp_path), "host", codes, None)
+    assert np.array_equal(got.output, model.output)
+    assert np.array_equal(got.status, model.status(calibrated=False))
+    assert np.array_equal(got.status & STATUS_SATURATED != 0, model.clamped)
 
 
 def test_runner_rejects_malformed_lines(host_runners: dict[str, Built]) -> None:
@@ -328,13 +370,24 @@ def test_cortex_m_bit_exact(name: str, target_runners: dict[str, Built]) -> None
     unit = unit_constants(d)
     for label, (codes, temps) in vectors(d, long_run=100_000).items():
         got = target_runners[name](codes, temps)
-        assert np.array_equal(got.output, run_integer(d, codes, temps).output), label
+        model = run_integer(d, codes, temps)
+        assert np.array_equal(got.output, model.output), label
+        assert np.array_equal(got.status, model.status(calibrated=False)), label
         per_sample = got.instructions_per_sample
         assert per_sample is not None and per_sample > 0
     codes, temps = vectors(d, long_run=20_000, seed=3)["long"]
     got = target_runners[name](codes, temps, block(d, unit))
     assert "calblock ok, calibrated 1" in got.stderr
-    assert np.array_equal(got.output, run_integer(d.with_constants(unit), codes, temps).output)
+    model = run_integer(d.with_constants(unit), codes, temps)
+    assert np.array_equal(got.output, model.output)
+    assert np.array_equal(got.status, model.status(calibrated=True))
+    other = next(v for k, v in DESIGNS.items() if k != name)
+    refused = target_runners[name](codes[:400], temps if temps is None else temps[:400],
+                                   block(other, other.nominal))
+    assert "calblock made for another spec, calibrated 0" in refused.stderr
+    assert np.array_equal(refused.status,
+                          run_integer(d, codes[:400], None if temps is None else temps[:400])
+                          .status(calibrated=False))
 
 
 @pytest.mark.slow
@@ -368,3 +421,56 @@ def test_demo_builds_and_checks_the_host_firmware(tmp_path: Path) -> None:
     assert any(line.startswith("render  ") for line in lines)
     assert any("matched the Python model bit for bit" in line for line in lines), lines
     assert (tmp_path / "demo" / "include" / "hive_scale_design.h").is_file()
+
+
+# ----------------------------------------------------------------------------- two specs
+
+TWO_DESIGNS = Path(__file__).resolve().parent / "c"
+
+
+@pytest.mark.parametrize("kind", ["host", "host-san"])
+def test_two_specs_build_into_one_program(kind: str, tmp_path: Path) -> None:
+    # HT_NAME_PREFIX gives each spec's firmware its own public names: the pipeline and loader
+    # are compiled once per spec, ht_crc32.c once, and the linker (gcc) must find no
+    # duplicate symbol; both pipelines then run interleaved, each bit-exact with the model.
+    require_tools(kind, run=True)
+    hive, coupon = DESIGNS["hive_scale"], DESIGNS["fatigue_coupon"]
+    gen = tmp_path / "gen"
+    gen.mkdir()
+    for d in (hive, coupon):
+        write_headers(render_headers(d), gen, force=True)
+    src = Path(str(firmware_sources()))
+    flags = [*cbuild.COMMON_FLAGS, "-Wconversion", *cbuild.KINDS[kind].flags,
+             f"-I{src}", f"-I{gen}"]
+    objects = []
+    for d, names in ((hive, "hive_"), (coupon, "coupon_")):
+        for source in (src / "ht_pipeline.c", src / "ht_calblock.c", TWO_DESIGNS / "ht_channel.c"):
+            obj = tmp_path / f"{names}{source.stem}.o"
+            subprocess.run(["gcc", *flags, *(f"-D{x}" for x in firmware_defines(d)),
+                            f"-DHT_NAME_PREFIX={names}", "-c", str(source), "-o", str(obj)],
+                           check=True)
+            objects.append(str(obj))
+    exe = tmp_path / "two_designs"
+    subprocess.run(["gcc", *flags, str(TWO_DESIGNS / "two_designs.c"), str(src / "ht_crc32.c"),
+                    *objects, "-o", str(exe)], check=True)
+    symbols = subprocess.run(["nm", str(exe)], capture_output=True, text=True, check=True).stdout
+    assert " T hive_process" in symbols and " T coupon_process" in symbols
+    assert " T ht_process" not in symbols
+
+    rng = np.random.default_rng(21)
+    limit = 1 << 23
+    n = 4000
+    hc, cc = rng.integers(-limit, limit, n), rng.integers(-limit, limit, n)
+    ht = rng.integers(-2500, 5000, n)
+    lines = []
+    for k in range(n):   # interleaved: one program, two independent pipelines
+        lines += [f"h {hc[k]} {ht[k]}", f"c {cc[k]} 2000"]
+    done = subprocess.run([str(exe)], input="\n".join(lines) + "\n", capture_output=True,
+                          text=True, check=True, timeout=TIMEOUT_S)
+    rows = [line.split() for line in done.stdout.splitlines()]
+    for tag, d, codes, temps in (("h", hive, hc, ht), ("c", coupon, cc, None)):
+        mine = [r for r in rows if r[0] == tag]
+        model = run_integer(d, codes, temps)
+        assert np.array_equal([int(r[1]) for r in mine], model.output), d.spec.name
+        assert np.array_equal([int(r[2], 16) for r in mine],
+                              model.status(calibrated=False)), d.spec.name

@@ -28,6 +28,13 @@ I64 = NDArray[np.int64]
 F64 = NDArray[np.float64]
 
 
+#: Bits of the firmware's status word (ht_pipeline.h, DEVELOPERS.md "Status word").
+STATUS_READY = 0x01
+STATUS_UNCALIBRATED = 0x02
+STATUS_INPUT_RAIL = 0x04
+STATUS_SATURATED = 0x08
+
+
 @dataclass
 class IntegerRun:
     """Outputs of the integer model and what each node saw."""
@@ -35,6 +42,17 @@ class IntegerRun:
     output: I64
     peaks: dict[str, int] = field(default_factory=dict)        # largest |value| per node
     saturations: dict[str, int] = field(default_factory=dict)  # clamps per node
+    rail: NDArray[np.bool_] = field(default_factory=lambda: np.zeros(0, dtype=bool))
+    """Per output: an input code at the ADC's lowest or highest code since the previous one."""
+    clamped: NDArray[np.bool_] = field(default_factory=lambda: np.zeros(0, dtype=bool))
+    """Per output: a saturation of the static path changed a value on the way to it."""
+
+    def status(self, *, calibrated: bool) -> I64:
+        """The firmware's status word of every output (ht_process's return value)."""
+        words = np.full(self.output.size, STATUS_READY, dtype=np.int64)
+        words |= np.where(self.rail, STATUS_INPUT_RAIL, 0)
+        words |= np.where(self.clamped, STATUS_SATURATED, 0)
+        return words | (0 if calibrated else STATUS_UNCALIBRATED)
 
 
 # ----------------------------------------------------------------------------- kernels
@@ -106,6 +124,13 @@ def _sat(values: I64, name: str, run: IntegerRun) -> I64:
     return clipped
 
 
+def _static_sat(values: I64, name: str, run: IntegerRun) -> I64:
+    """``_sat`` on a step of the static path, noting which outputs it clamped."""
+    clipped = _sat(values, name, run)
+    run.clamped = run.clamped | (clipped != values)
+    return clipped
+
+
 # ----------------------------------------------------------------------------- inputs
 
 
@@ -135,14 +160,17 @@ def _output_temps(design: Design, t: I64 | None, n_out: int) -> I64 | None:
 def _static_int(design: Design, v: I64, temps: I64 | None, run: IntegerRun) -> I64:
     """Scale, linearise and compensate chain words v (int64 array of int32 values)."""
     c = design.constants
-    s = _sat(round_shift_array(v * np.int64(c.scale_mul), design.scale.shift), "scale", run)
+    run.clamped = np.zeros(v.shape, dtype=bool)
+    s = _static_sat(round_shift_array(v * np.int64(c.scale_mul), design.scale.shift), "scale",
+                    run)
     lin = design.linearisation
     if lin is not None:
         w = s * np.int64(1 << (LIN_FRAC - lin.norm_shift))
         acc = np.full(s.shape, c.lin[-1], dtype=np.int64)
         for coeff in reversed(c.lin[:-1]):
             acc = round_shift_array(acc * w, LIN_FRAC) + np.int64(coeff)
-        s = _sat(round_shift_array(acc, LIN_FRAC - lin.norm_shift), "linearisation", run)
+        s = _static_sat(round_shift_array(acc, LIN_FRAC - lin.norm_shift), "linearisation",
+                        run)
     tc = design.temperature
     if tc is not None:
         t = np.full(s.shape, tc.reference_centi, dtype=np.int64) if temps is None else temps
@@ -150,7 +178,7 @@ def _static_int(design: Design, v: I64, temps: I64 | None, run: IntegerRun) -> I
         z = round_shift_array(np.int64(c.tc_zero) * dt, tc.zero_shift)
         s1 = s - z
         g = round_shift_array(np.int64(c.tc_span) * dt, tc.span_shift)
-        s = _sat(s1 + round_shift_array(s1 * g, LIN_FRAC), "temperature", run)
+        s = _static_sat(s1 + round_shift_array(s1 * g, LIN_FRAC), "temperature", run)
     return s
 
 
@@ -179,7 +207,16 @@ def run_integer(design: Design, codes: ArrayLike,
             label = f"{name}.section{j + 1}"
             run.saturations[label], run.peaks[label] = int(sat), int(peak)
     run.output = _static_int(design, v, _output_temps(design, t, v.size), run)
+    n_out, d = run.output.size, design.decimation
+    run.rail = np.asarray(_at_rail(design, x)[:n_out * d].reshape(n_out, d).any(axis=1),
+                          dtype=bool)
     return run
+
+
+def _at_rail(design: Design, x: I64) -> NDArray[np.bool_]:
+    """Per code: at either end of the ADC range (an overloaded converter)."""
+    limit = 1 << (design.spec.adc.bits - 1)
+    return np.asarray((x <= -limit) | (x >= limit - 1), dtype=bool)
 
 
 def static_integer(design: Design, codes: ArrayLike,
@@ -188,6 +225,7 @@ def static_integer(design: Design, codes: ArrayLike,
     x, t = _inputs(design, codes, temps_centi)
     run = IntegerRun(output=np.empty(0, dtype=np.int64))
     run.output = _static_int(design, _offset_int(design, x, run), t, run)
+    run.rail = _at_rail(design, x)
     return run
 
 

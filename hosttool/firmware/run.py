@@ -28,9 +28,11 @@ _SUMMARY = re.compile(rb"ht_runner: samples (\d+) outputs (\d+)"
 
 @dataclass(frozen=True)
 class RunnerOutput:
-    """What one run of ht_runner gave: outputs and, on targets, SysTick ticks."""
+    """What one run of ht_runner gave: outputs, their status words and, on targets, SysTick
+    ticks."""
 
     output: NDArray[np.int64]
+    status: NDArray[np.int64]
     samples: int
     ticks: int | None
     empty_ticks: int | None
@@ -75,9 +77,13 @@ def parse_run(result: cbuild.RunResult) -> RunnerOutput:
     found = _SUMMARY.search(result.stderr)
     if found is None:
         raise cbuild.CBuildError(f"ht_runner gave no summary line: {stderr.strip()}")
-    values = np.array([int(v) for v in result.stdout.split()], dtype=np.int64)
+    words = result.stdout.split()
+    if len(words) % 2:
+        raise cbuild.CBuildError("ht_runner printed an output line without its status word")
+    values = np.array([int(v) for v in words[0::2]], dtype=np.int64)
+    status = np.array([int(v, 16) for v in words[1::2]], dtype=np.int64)
     ticks, empty = found.group(3), found.group(4)
-    return RunnerOutput(values, int(found.group(1)), int(ticks) if ticks else None,
+    return RunnerOutput(values, status, int(found.group(1)), int(ticks) if ticks else None,
                         int(empty) if empty else None, stderr)
 
 
