@@ -151,23 +151,33 @@ def test_other_constants_need_recalibrate_and_keep_history(tmp_path: Path) -> No
 
 
 def test_all_passing_lot_exits_0_and_bad_input_writes_nothing(tmp_path: Path) -> None:
-    """Source: the issue's exit statuses (0 all passed, 2 bad input)."""
+    """Source: the issue's exit statuses (0 all passed, 2 bad input): a file that cannot be
+    read as readings (here a bad serial) writes nothing, not even the record or the lock;
+    a bad cell of one unit refuses that unit alone."""
     out = tmp_path / "out"
     out.mkdir()
     readings = _lot(tmp_path / "lot.csv", _truths(4))
     assert _batch(readings, out).returncode == 0
-    bad = tmp_path / "bad.csv"
     lines = readings.read_text().splitlines()
-    lines[5] = lines[5].replace(",32,", ",-3,")
-    bad.write_text("\n".join(lines) + "\n")
+    bad = tmp_path / "bad.csv"
+    bad.write_text("\n".join(lines[:5] + [lines[5].replace("HV0000,", "HV 0000,")]
+                             + lines[6:]) + "\n")
     empty = tmp_path / "empty"
     empty.mkdir()
     result = _batch(bad, empty)
     assert result.returncode == 2
-    assert result.stderr.strip().splitlines()[-1].endswith(
-        "bad.csv:6: samples: '-3' is not a whole number of at least 1")
-    assert len(result.stderr.strip().splitlines()) == 1
+    assert result.stderr.strip().splitlines() == [
+        "hosttool: error: " + str(bad) + ":6: serial: 'HV 0000' must be 1 to 16 letters, "
+        "digits, '.', '_' or '-', starting with a letter or digit"]
     assert list(empty.iterdir()) == []
+    cell = tmp_path / "cell.csv"
+    cell.write_text("\n".join(lines[:5] + [lines[5].replace(",32,", ",-3,")] + lines[6:])
+                    + "\n")
+    result = _batch(cell, empty)
+    assert result.returncode == 2, result.stderr
+    assert f"  HV0000: REFUSED: {cell}:6: samples: '-3' is not a whole number from 1 to " \
+        "1000000000" in result.stdout.splitlines()
+    assert sorted(r["serial"] for r in _rows(empty)) == ["HV0001", "HV0002", "HV0003"]
 
 
 # ----------------------------------------------------------------------------- crashes

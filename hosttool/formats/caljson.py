@@ -93,7 +93,7 @@ def read_calfile(path: Path, design: Design) -> CalRecord:
                          f"{formats(design)}: the design changed since calibration; "
                          "calibrate again")
     serial = _get(data, "serial", str, where)
-    if not SERIAL_RE.match(serial):
+    if not SERIAL_RE.fullmatch(serial):
         raise InputError(f"{where}: serial: {serial!r} is not a valid serial")
     cal_time = parse_time_utc(_get(data, "cal_time_utc", str, where), f"{where}: cal_time_utc")
     c = _get(data, "constants", dict, where)

@@ -12,7 +12,8 @@ output unit so a file for another product is refused):
     samples           number of codes averaged (>= 1)
     direction         "up" (load increasing) or "down" (decreasing), for hysteresis
     time_utc          optional: when the reading was taken, ISO 8601 in UTC
-                      (2025-03-04T08:15:00Z); the unit's calibration time is its latest one
+                      (2025-03-04T08:15:00Z or 2025-03-04T08:15:00+00:00, nothing else:
+                      util/utctime.py); the unit's calibration time is its latest one
 
 Lines starting with '#' are comments. Every error names the file, line and column.
 """
@@ -24,7 +25,8 @@ import difflib
 import hashlib
 import math
 import re
-from dataclasses import dataclass
+from collections.abc import Callable
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -33,9 +35,11 @@ from numpy.typing import NDArray
 from hosttool.errors import InputError
 from hosttool.physics.adc import code_range
 from hosttool.spec.schema import Spec
+from hosttool.util.text import control_character, shown
 from hosttool.util.utctime import parse_time_utc
 
-SERIAL_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]{0,15}$")
+#: A serial (full match): it names files and fills the block's 16-byte field.
+SERIAL_RE = re.compile(r"[A-Za-z0-9][A-Za-z0-9._-]{0,15}")
 DIRECTIONS = ("up", "down")
 REQUIRED = ("serial", "temperature_c", "raw_mean_counts", "raw_std_counts", "samples",
             "direction")
@@ -74,6 +78,10 @@ class ReadingsFile:
     source: str
     sha256: str
     units: dict[str, UnitReadings]
+    #: with ``per_unit``: serial -> the one-line reason its readings were refused
+    refused: dict[str, str] = field(default_factory=dict)
+    #: every serial, refused or not, in order of first appearance
+    order: tuple[str, ...] = ()
 
 
 def _columns(header: list[str], spec: Spec, source: str, line: int) -> dict[str, int]:
@@ -99,27 +107,9 @@ def _columns(header: list[str], spec: Spec, source: str, line: int) -> dict[str,
     return index
 
 
-class _Row:
-    """Typed access to one CSV row, errors naming file, line and column."""
-
-    def __init__(self, cells: list[str], index: dict[str, int], source: str, line: int):
-        self.cells, self.index, self.where = cells, index, f"{source}:{line}"
-
-    def text(self, name: str) -> str:
-        return self.cells[self.index[name]].strip()
-
-    def fail(self, name: str, message: str) -> InputError:
-        return InputError(f"{self.where}: {name}: {message}")
-
-    def number(self, name: str) -> float:
-        raw = self.text(name)
-        try:
-            value = float(raw)
-        except ValueError:
-            raise self.fail(name, f"{raw!r} is not a number") from None
-        if not math.isfinite(value):
-            raise self.fail(name, f"{raw!r} is not a finite number")
-        return value
+_NUMBER_RE = re.compile(r"[+-]?(?:[0-9]+(?:\.[0-9]*)?|\.[0-9]+)(?:[eE][+-]?[0-9]+)?")
+#: The largest ``samples`` accepted (codes averaged into one reading).
+SAMPLES_MAX = 1_000_000_000
 
 
 @dataclass(frozen=True)
@@ -138,7 +128,7 @@ class _Rules:
     @classmethod
     def of(cls, spec: Spec) -> _Rules:
         full = spec.sensor.full_scale
-        t_low, t_high, t_span = -273.15, 1000.0, "the plausible range"
+        t_low, t_high, t_span = -273.15, 1000.0, "the plausible range -273.15 .. 1000 C"
         if spec.temperature is not None:
             t_low, t_high = spec.temperature.min_c, spec.temperature.max_c
             t_span = (f"the compensated range {t_low:g} .. {t_high:g} C (temperature.min_c, "
@@ -147,94 +137,101 @@ class _Rules:
                    *code_range(spec.adc.bits),
                    t_low, t_high, t_span)
 
-    def reference_ok(self, value: float) -> bool:
-        """Within the sensor range (a relative 1e-9 of slack for decimal round-off)."""
-        return self.low - 1e-9 * self.high <= value <= self.high * (1 + 1e-9)
+
+@dataclass
+class _Check:
+    """One column checked for every row at once: its values and the rows it refuses.
+
+    ``bad`` marks refused rows; ``message(i)`` says why row ``i`` is refused."""
+
+    name: str
+    values: np.ndarray
+    bad: NDArray[np.bool_]
+    message: Callable[[int], str]
 
 
-_TIME_RE = re.compile(r"^\d{4}-\d\d-\d\dT\d\d:\d\d:\d\dZ$")
+def _numbers(name: str, cells: list[str], low: float, high: float, span: str,
+             unit: str = "") -> _Check:
+    """A column of decimal numbers (ASCII, plain or exponent notation) within low .. high."""
+    parsed = [float(c) if _NUMBER_RE.fullmatch(c) else math.nan for c in cells]
+    values = np.array(parsed, dtype=np.float64)
+    with np.errstate(invalid="ignore"):
+        bad = ~((values >= low) & (values <= high))
+
+    def message(i: int) -> str:
+        cell, value = cells[i], values[i]
+        if not _NUMBER_RE.fullmatch(cell):
+            return f"{shown(cell)} is not a number (decimal notation, e.g. 12.5 or 1.25e3)"
+        if not math.isfinite(value):
+            return f"{shown(cell)} is not a finite number"
+        return f"{value:g}{unit} lies outside {span}"
+
+    return _Check(name, values, bad, message)
 
 
-def _check_row(row: _Row, rules: _Rules, has_time: bool) -> None:
-    """Every check of one row, raising the first problem with file, line and column."""
-    serial = row.text("serial")
-    if not SERIAL_RE.match(serial):
-        raise row.fail("serial", f"{serial!r} must be 1 to 16 letters, digits, '.', '_' or "
-                                 "'-', starting with a letter or digit")
-    reference = row.number(rules.ref_name)
-    if not rules.reference_ok(reference):
-        raise row.fail(rules.ref_name, f"{reference:g} lies outside the sensor range "
-                                       f"{rules.low:g} .. {rules.high:g}")
-    temperature = row.number("temperature_c")
-    if not rules.t_low <= temperature <= rules.t_high:
-        raise row.fail("temperature_c", f"{temperature:g} C lies outside {rules.t_span}")
-    mean = row.number("raw_mean_counts")
-    if not rules.code_min <= mean <= rules.code_max:
-        raise row.fail("raw_mean_counts", f"{mean:g} lies outside the code range "
-                                          f"{rules.code_min} .. {rules.code_max}")
-    std = row.number("raw_std_counts")
-    if std < 0:
-        raise row.fail("raw_std_counts", f"{std:g} is negative")
-    raw_samples = row.text("samples")
-    if not raw_samples.isdigit() or int(raw_samples) < 1:
-        raise row.fail("samples", f"{raw_samples!r} is not a whole number of at least 1")
-    if row.text("direction").lower() not in DIRECTIONS:
-        raise row.fail("direction", f"{row.text('direction')!r} is not 'up' or 'down'")
+def _checks(cells: dict[str, list[str]], rules: _Rules, has_time: bool) -> list[_Check]:
+    """Every check of every row, in the order a row's problems are reported."""
+    serials = cells["serial"]
+    serial_bad = np.array([SERIAL_RE.fullmatch(s) is None for s in serials], dtype=bool)
+    codes = rules.code_max - rules.code_min
+    slack = 1e-9 * rules.high             # decimal round-off at the ends of the range
+    samples_text = cells["samples"]
+    samples_ok = [t.isascii() and t.isdigit() and len(t) <= 10 for t in samples_text]
+    samples = np.array([int(t) if ok else 0 for t, ok in zip(samples_text, samples_ok,
+                                                             strict=True)], dtype=np.int64)
+    directions = [d.lower() if d.isascii() else d for d in cells["direction"]]
+    checks = [
+        _Check("serial", np.array(serials, dtype=object), serial_bad,
+               lambda i: f"{shown(serials[i])} must be 1 to 16 letters, digits, '.', '_' or "
+                         "'-', starting with a letter or digit"),
+        _numbers(rules.ref_name, cells[rules.ref_name], rules.low - slack, rules.high + slack,
+                 f"the sensor range {rules.low:g} .. {rules.high:g}"),
+        _numbers("temperature_c", cells["temperature_c"], rules.t_low, rules.t_high,
+                 rules.t_span, " C"),
+        _numbers("raw_mean_counts", cells["raw_mean_counts"], rules.code_min, rules.code_max,
+                 f"the code range {rules.code_min} .. {rules.code_max}"),
+        _numbers("raw_std_counts", cells["raw_std_counts"], 0.0, float(codes),
+                 f"0 .. {codes} counts"),
+        _Check("samples", samples, (samples < 1) | (samples > SAMPLES_MAX),
+               lambda i: f"{shown(samples_text[i])} is not a whole number from 1 to "
+                         f"{SAMPLES_MAX}"),
+        _Check("direction", np.array([d == "up" for d in directions]),
+               np.array([d not in DIRECTIONS for d in directions], dtype=bool),
+               lambda i: f"{shown(cells['direction'][i])} is not 'up' or 'down'"),
+    ]
     if has_time:
-        parse_time_utc(row.text("time_utc"), f"{row.where}: time_utc")
+        stamps = cells["time_utc"]
+        times = np.zeros(len(stamps), dtype=np.int64)
+        refused: dict[int, str] = {}
+        for i, stamp in enumerate(stamps):
+            try:
+                times[i] = parse_time_utc(stamp, "")
+            except InputError as exc:
+                refused[i] = str(exc).removeprefix(": ")
+        bad = np.zeros(len(stamps), dtype=bool)
+        bad[list(refused)] = True
+        checks.append(_Check("time_utc", times, bad, refused.__getitem__))
+    return checks
 
 
-def _fast_columns(rows: list[list[str]], index: dict[str, int], rules: _Rules,
-                  has_time: bool) -> dict[str, np.ndarray] | None:
-    """The columns as arrays if every row passes every check, else None (then
-    ``_check_row`` row by row finds and reports the first problem). Same rules, in bulk."""
-    def col(name: str) -> list[str]:
-        i = index[name]
-        return [r[i].strip() for r in rows]
+def parse_readings(text: str, spec: Spec, source: str, *, per_unit: bool = False
+                   ) -> ReadingsFile:
+    """Validate the CSV text of a readings file for ``spec``; ``source`` names it in errors.
 
-    try:
-        numbers = {name: np.array([float(x) for x in col(name)]) for name in (
-            rules.ref_name, "temperature_c", "raw_mean_counts", "raw_std_counts")}
-    except ValueError:
-        return None
-    samples_text = col("samples")
-    directions = [d.lower() for d in col("direction")]
-    serials = col("serial")
-    if not all(np.isfinite(v).all() for v in numbers.values()) \
-            or not all(x.isdigit() for x in samples_text) \
-            or not set(directions) <= set(DIRECTIONS) \
-            or not all(SERIAL_RE.match(x) for x in set(serials)):
-        return None
-    ref, temp = numbers[rules.ref_name], numbers["temperature_c"]
-    mean, std = numbers["raw_mean_counts"], numbers["raw_std_counts"]
-    samples = np.array([int(x) for x in samples_text], dtype=np.int64)
-    if not ((ref >= rules.low - 1e-9 * rules.high) & (ref <= rules.high * (1 + 1e-9))).all() \
-            or not ((temp >= rules.t_low) & (temp <= rules.t_high)).all() \
-            or not ((mean >= rules.code_min) & (mean <= rules.code_max)).all() \
-            or (std < 0).any() or (samples < 1).any():
-        return None
-    out = {"serial": np.array(serials, dtype=object), "reference": ref, "temperature_c": temp,
-           "raw_mean": mean, "raw_std": std, "samples": samples,
-           "up": np.array([d == "up" for d in directions])}
-    if has_time:
-        stamps = col("time_utc")
-        if not all(_TIME_RE.match(x) for x in stamps):
-            return None
-        try:
-            out["time"] = np.array([x[:-1] for x in stamps],
-                                   dtype="datetime64[s]").astype(np.int64)
-        except ValueError:
-            return None
-    return out
-
-
-def parse_readings(text: str, spec: Spec, source: str) -> ReadingsFile:
-    """Validate the CSV text of a readings file for ``spec``; ``source`` names it in errors."""
-    body = [(n, ln) for n, ln in enumerate(text.splitlines(), start=1)
+    One check, for all rows at once: each column is validated as a whole, and the first
+    refused row (in file order; within it, the first refused column in the order of
+    ``_checks``) is reported as ``file:line: column: reason``. The whole file is refused
+    for that row, unless ``per_unit`` (``batch``): then a row with a valid serial refuses
+    only its unit (``ReadingsFile.refused``, the first problem of each unit); a bad header,
+    a row of the wrong width or a bad serial still refuse the whole file."""
+    body = [(n, ln.removesuffix("\r")) for n, ln in enumerate(text.split("\n"), start=1)
             if ln.strip() and not ln.lstrip().startswith("#")]
     if not body:
         raise InputError(f"{source}: no header and no readings")
     header_line, header_text = body[0]
+    bad_char = control_character(header_text)
+    if bad_char is not None:
+        raise InputError(f"{source}:{header_line}: header: control character {bad_char}")
     header = next(csv.reader([header_text]))
     index = _columns(header, spec, source, header_line)
     if len(body) == 1:
@@ -247,37 +244,54 @@ def parse_readings(text: str, spec: Spec, source: str) -> ReadingsFile:
         if len(cells) != len(header):
             raise InputError(f"{source}:{line}: {len(cells)} fields, the header has "
                              f"{len(header)}")
-    cols = _fast_columns(rows, index, rules, has_time)
-    if cols is None:
-        for line, cells in zip(lines, rows, strict=True):
-            _check_row(_Row(cells, index, source, line), rules, has_time)
-        raise AssertionError("the bulk and the row-by-row readings checks disagree")
+    columns = {name: [r[i].strip() for r in rows] for name, i in index.items()}
+    checks = _checks(columns, rules, has_time)
+    bad_rows = np.zeros(len(rows), dtype=bool)
+    for check in checks:
+        bad_rows |= check.bad
+
+    def problem(i: int) -> str:
+        check = next(c for c in checks if c.bad[i])
+        return f"{source}:{lines[i]}: {check.name}: {check.message(i)}"
+
+    serial_bad = checks[0].bad
+    if serial_bad.any() or (bad_rows.any() and not per_unit):
+        raise InputError(problem(int(np.argmax(serial_bad if serial_bad.any() else bad_rows))))
+    refused: dict[str, str] = {}
+    for i in np.flatnonzero(bad_rows).tolist():
+        refused.setdefault(columns["serial"][i], problem(i))
+    cols = {check.name: check.values for check in checks}
     members: dict[str, list[int]] = {}
-    for i, serial in enumerate(cols["serial"].tolist()):
+    for i, serial in enumerate(columns["serial"]):
         members.setdefault(serial, []).append(i)
+    order = tuple(members)
+    for serial in refused:
+        del members[serial]
     line_numbers = np.array(lines, dtype=np.int64)
     units = {}
     for serial, idx_list in members.items():
         idx = np.array(idx_list)
         units[serial] = UnitReadings(
             serial=serial, source=source, lines=line_numbers[idx],
-            reference=cols["reference"][idx], temperature_c=cols["temperature_c"][idx],
-            raw_mean=cols["raw_mean"][idx], raw_std=cols["raw_std"][idx],
-            samples=cols["samples"][idx], up=cols["up"][idx],
-            cal_time_utc=int(cols["time"][idx].max()) if has_time else None)
+            reference=cols[rules.ref_name][idx], temperature_c=cols["temperature_c"][idx],
+            raw_mean=cols["raw_mean_counts"][idx], raw_std=cols["raw_std_counts"][idx],
+            samples=cols["samples"][idx], up=cols["direction"][idx],
+            cal_time_utc=int(cols["time_utc"][idx].max()) if has_time else None)
     digest = hashlib.sha256(text.encode("utf-8")).hexdigest()
-    return ReadingsFile(source=source, sha256=digest, units=units)
+    return ReadingsFile(source=source, sha256=digest, units=units, refused=refused,
+                        order=order)
 
 
-def load_readings(path: Path, spec: Spec) -> ReadingsFile:
-    """Read and validate a readings file; any problem is a one-line ``InputError``."""
+def load_readings(path: Path, spec: Spec, *, per_unit: bool = False) -> ReadingsFile:
+    """Read and validate a readings file; any problem is a one-line ``InputError``
+    (``per_unit``: see ``parse_readings``)."""
     try:
         text = path.read_text(encoding="utf-8-sig")
     except FileNotFoundError:
         raise InputError(f"{path}: no such file") from None
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"{path}: cannot read: {exc.__class__.__name__}: {exc}") from None
-    return parse_readings(text, spec, source=str(path))
+    return parse_readings(text, spec, source=str(path), per_unit=per_unit)
 
 
 def unit_cal_time(unit: UnitReadings, override: int | None) -> int:

@@ -39,7 +39,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 
 from hosttool.design.resolve import make_design
-from hosttool.errors import InputError, OutputError
+from hosttool.errors import HostToolError, OutputError
 from hosttool.formats.calblock import encode
 from hosttool.formats.caljson import constants_json
 from hosttool.formats.hexfile import block_area, block_image, hex_text
@@ -105,17 +105,38 @@ class BatchSummary:
         return 2 if "refused" in statuses else 1 if "fail" in statuses else 0
 
 
-def prepare(ctx: CalibrationContext, unit: UnitReadings, override: int | None) -> Prepared:
-    """Calibrate one unit and build its image bytes (pure: no files, no record)."""
+def refused(serial: str, reason: str) -> Prepared:
+    """A unit refused on its own (the rest of the lot proceeds)."""
+    return Prepared(serial, reason, "", (), "", "", "", None)
+
+
+#: A unit whose readings were refused: (serial, reason).
+RefusedUnit = tuple[str, str]
+
+
+def prepare(ctx: CalibrationContext, unit: UnitReadings | RefusedUnit,
+            override: int | None) -> Prepared:
+    """Calibrate one unit and build its image bytes (pure: no files, no record).
+
+    Anything that goes wrong with this unit alone refuses it, with the reason, and never
+    the lot: bad input (``HostToolError``), and, should a unit still reach one, an
+    arithmetic failure (reported as a fault of the tool)."""
+    if isinstance(unit, tuple):
+        return refused(*unit)
     try:
         cal_time = unit_cal_time(unit, override)
         result = calibrate_unit(ctx, unit, cal_time_utc=cal_time)
-    except InputError as exc:
-        return Prepared(unit.serial, str(exc), "", (), "", "", "", None)
-    image = None
-    if result.passed:
-        block = encode(ctx.design, result.constants, serial=unit.serial, cal_time_utc=cal_time)
-        image = hex_text(block_image(ctx.design, block)).encode("ascii")
+        image = None
+        if result.passed:
+            block = encode(ctx.design, result.constants, serial=unit.serial,
+                           cal_time_utc=cal_time)
+            image = hex_text(block_image(ctx.design, block)).encode("ascii")
+    except HostToolError as exc:
+        return refused(unit.serial, str(exc))
+    except (ArithmeticError, ValueError) as exc:
+        return refused(unit.serial, f"{unit.where(0)}: serial {unit.serial}: the tool failed "
+                       f"on this unit ({exc.__class__.__name__}: {exc}); please report it "
+                       "with the readings")
     return Prepared(
         serial=unit.serial, refused="", verdict=result.verdict, reasons=result.reasons,
         cal_time_utc=format_time_utc(cal_time),
@@ -286,14 +307,14 @@ def _start_worker(ctx: CalibrationContext, override: int | None) -> None:
     _WORKER.append((ctx, override))
 
 
-def _work(unit: UnitReadings) -> Prepared:
+def _work(unit: UnitReadings | RefusedUnit) -> Prepared:
     ctx, override = _WORKER[0]
     return prepare(ctx, unit, override)
 
 
 @contextmanager
 def _preparer(ctx: CalibrationContext, override: int | None, jobs: int, count: int
-              ) -> Iterator[Callable[[list[UnitReadings]], Iterator[Prepared]]]:
+              ) -> Iterator[Callable[[list[UnitReadings | RefusedUnit]], Iterator[Prepared]]]:
     """A function giving prepared units in file order, in ``jobs`` worker processes if > 1.
 
     The workers are forked before the record is opened (an SQLite connection must not
@@ -314,9 +335,11 @@ def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: Path | Non
     design = make_design(load_spec(spec_path))
     ctx = CalibrationContext.of(design)
     block_area(design)
-    readings = load_readings(readings_path, design.spec)
+    readings = load_readings(readings_path, design.spec, per_unit=True)
     make_folder(out)
-    units = list(readings.units.values())
+    units: list[UnitReadings | RefusedUnit] = [
+        readings.units[s] if s in readings.units else (s, readings.refused[s])
+        for s in readings.order]
     with _preparer(ctx, cal_time, jobs, len(units)) as prepared:
         record = Record(db if db is not None else out / "production.sqlite")
         st = Station(record=record, folder=out, name=station or socket.gethostname(),

@@ -17,8 +17,10 @@ verdict comes from the unit's readings run through the bit-exact static path
 
 Refused (``InputError``, exit status 2): saturated readings, non-monotonic response,
 readings of one point that disagree, too few points, noise far above the ADC's, missing
-readings for a limit the spec sets. A unit that misses its limits is not refused: its
-verdict is "fail" with the reasons.
+readings for a limit the spec sets, a fit the readings do not determine (condition number
+above ``MAX_CONDITION``), a fit that is not finite or lies outside what the spec's bridge
+and ADC can give (``_refuse_fit``). Each names the file, the unit's line and serial. A
+unit that misses its limits is not refused: its verdict is "fail" with the reasons.
 """
 
 from __future__ import annotations
@@ -54,6 +56,10 @@ TEMP_GROUP_C = 1.0
 #: the nominal span are refused as disagreeing duplicates (our choice; hysteresis and
 #: repeatability are orders of magnitude smaller).
 DISAGREE_PCT_SPAN = 1.0
+#: Largest condition number of the fit's design matrix (columns scaled to 1) accepted: the
+#: readings must determine zero, span and their drifts (our choice; a lot spread as the
+#: README asks is below 1e3).
+MAX_CONDITION = 1e8
 
 
 @dataclass(frozen=True)
@@ -247,7 +253,7 @@ def _refuse_points(ctx: CalibrationContext, u: UnitReadings, lay: _Layout) -> No
     cal = spec.calibration
     assert cal is not None
     unit = spec.sensor.unit
-    where = f"{u.source}: serial {u.serial}"
+    where = _unit_where(u)
     refs = {key for _, key in lay.points}
     for p in cal.points:
         if round(p / ctx.resolution) not in refs:
@@ -319,7 +325,15 @@ class _Fit:
     residual: F64             # straight-line residuals, counts
 
 
+def _unit_where(u: UnitReadings) -> str:
+    """``file:line: serial S`` of a unit, at its first reading (for refusals of the unit)."""
+    return f"{u.where(0)}: serial {u.serial}"
+
+
 def _fit(ctx: CalibrationContext, u: UnitReadings, shape: F64) -> _Fit:
+    """The least-squares fit, guarded: the readings must determine every parameter (the
+    design matrix, columns scaled to 1, has condition number at most ``MAX_CONDITION``),
+    and the result must be finite and inside the physics range (``_refuse_fit``)."""
     temp = ctx.design.spec.temperature
     ones = np.ones_like(shape)
     if temp is None:
@@ -327,12 +341,45 @@ def _fit(ctx: CalibrationContext, u: UnitReadings, shape: F64) -> _Fit:
     else:
         dt = u.temperature_c - temp.reference_c
         x = np.column_stack((ones, dt, shape, shape * dt))
-    beta = np.linalg.lstsq(x, u.raw_mean, rcond=None)[0]
-    residual = u.raw_mean - x @ beta
+    where = _unit_where(u)
+    with np.errstate(all="ignore"):
+        norms = np.max(np.abs(x), axis=0)
+        if not np.all(np.isfinite(x)) or not np.all(norms > 0):
+            raise InputError(f"{where}: the readings do not determine the fit (a column of "
+                             "the straight-line model is zero or not finite)")
+        condition = float(np.linalg.cond(x / norms))
+        if not condition <= MAX_CONDITION:
+            raise InputError(f"{where}: the readings do not determine the fit (condition "
+                             f"number {condition:.3g} above {MAX_CONDITION:g}): spread the "
+                             "references and temperatures")
+        beta = np.linalg.lstsq(x, u.raw_mean, rcond=None)[0]
+        residual = u.raw_mean - x @ beta
+    b = float(beta[1] if temp is None else beta[2])
+    _refuse_fit(ctx, u, beta, b)
     if temp is None:
-        return _Fit(float(beta[0]), float(beta[1]), 0.0, 0.0, residual)
-    return _Fit(float(beta[0]), float(beta[2]), float(beta[1]), float(beta[3] / beta[2]),
-                residual)
+        return _Fit(float(beta[0]), b, 0.0, 0.0, residual)
+    return _Fit(float(beta[0]), b, float(beta[1]), float(beta[3] / beta[2]), residual)
+
+
+def _refuse_fit(ctx: CalibrationContext, u: UnitReadings, beta: NDArray[np.floating],
+                b: float) -> None:
+    """Refuse a fit that is not finite or that no bridge of this spec could give: a zero
+    outside the ADC's code range, or a response over the whole measuring range smaller
+    than the ADC's own noise (nothing was measured) or larger than the code range."""
+    where = _unit_where(u)
+    if not np.all(np.isfinite(beta)):
+        raise InputError(f"{where}: the fit of the readings is not finite")
+    codes = ctx.code_max - ctx.code_min
+    if not ctx.code_min <= beta[0] <= ctx.code_max:
+        raise InputError(f"{where}: the fitted zero {beta[0]:.4g} counts lies outside the "
+                         f"code range {ctx.code_min} .. {ctx.code_max}")
+    response = abs(b) * ctx.span_range
+    if not ctx.noise_counts <= response <= codes:
+        raise InputError(f"{where}: the fitted response over the range is {response:.4g} "
+                         f"counts, outside what the bridge can give ({ctx.noise_counts:.4g}, "
+                         f"the ADC's noise, .. {codes}, the code range; nominal "
+                         f"{abs(ctx.nominal_b) * ctx.span_range:.4g}): not a working unit or "
+                         "mislabelled readings")
 
 
 def _constants(ctx: CalibrationContext, u: UnitReadings, fit: _Fit
@@ -340,16 +387,28 @@ def _constants(ctx: CalibrationContext, u: UnitReadings, fit: _Fit
     """Round the fit into the design's formats; also return the unrounded values."""
     d = ctx.design
     g, s = d.guard_bits, d.scale.shift
-    exact = {"offset": math.ldexp(fit.a, g),
-             "scale_mul": math.ldexp(1.0 / (fit.b * ctx.resolution), s - g)}
-    offset, scale_mul = round(exact["offset"]), round(exact["scale_mul"])
+    exact: dict[str, float] = {}
+
+    def put(name: str, mantissa: float, exponent: int) -> int:
+        """exact[name] = mantissa * 2^exponent, rounded; refused when not finite."""
+        try:
+            value = math.ldexp(mantissa, exponent)
+        except OverflowError:
+            value = math.inf
+        if not math.isfinite(value):
+            raise InputError(f"{_unit_where(u)}: the constant {name} of this fit is not "
+                             "finite")
+        exact[name] = value
+        return round(value)
+
+    offset = put("offset", fit.a, g)
+    scale_mul = put("scale_mul", 1.0 / (fit.b * ctx.resolution), s - g)
     realised = math.ldexp(scale_mul, -s)
     tc_zero = tc_span = 0
     tc = d.temperature
     if tc is not None:
-        exact["tc_zero"] = math.ldexp(fit.z * realised / 100, g + tc.zero_shift)
-        exact["tc_span"] = math.ldexp(-fit.k / 100, LIN_FRAC + tc.span_shift)
-        tc_zero, tc_span = round(exact["tc_zero"]), round(exact["tc_span"])
+        tc_zero = put("tc_zero", fit.z * realised / 100, g + tc.zero_shift)
+        tc_span = put("tc_span", -fit.k / 100, LIN_FRAC + tc.span_shift)
     lin: tuple[int, ...] = ()
     if d.linearisation is not None and d.linearisation.mode == "bridge_inverse":
         lin = d.nominal.lin
@@ -362,13 +421,14 @@ def _constants(ctx: CalibrationContext, u: UnitReadings, fit: _Fit
         if tc is not None:
             dt = np.clip(np.rint(u.temperature_c * 100), tc.min_centi, tc.max_centi) \
                 - tc.reference_centi
-            gamma = tc.realised_span(tc_span)
-            target = target / (1 + gamma * dt) + tc.realised_zero(tc_zero) * dt
+            gamma = tc_span / 2.0 ** (tc.span_shift + LIN_FRAC)
+            target = target / (1 + gamma * dt) + tc_zero / 2.0 ** tc.zero_shift * dt
+        if not (np.all(np.isfinite(w)) and np.all(np.isfinite(target))):
+            raise InputError(f"{_unit_where(u)}: the linearisation fit of this unit is not "
+                             "finite")
         coeffs = np.polynomial.polynomial.polyfit(w, target / 2.0 ** k_norm,
                                                   d.spec.linearisation.order)
-        for k, c in enumerate(coeffs):
-            exact[f"lin[{k}]"] = math.ldexp(float(c), LIN_FRAC)
-        lin = tuple(round(exact[f"lin[{k}]"]) for k in range(coeffs.size))
+        lin = tuple(put(f"lin[{k}]", float(c), LIN_FRAC) for k, c in enumerate(coeffs))
     return UnitConstants(offset=offset, scale_mul=scale_mul, lin=lin, tc_zero=tc_zero,
                          tc_span=tc_span), exact
 

@@ -1,26 +1,62 @@
-"""Times in UTC: ISO 8601 text to whole seconds since 1970 and back."""
+"""Times in UTC: ISO 8601 text to whole seconds since 1970 and back.
+
+Exactly two forms are accepted, both ISO 8601 extended format in UTC with whole seconds:
+
+    2025-03-04T08:15:00Z
+    2025-03-04T08:15:00+00:00
+
+Anything else is refused in one line: a space or lower-case ``t`` instead of ``T``, the
+basic format (``20250304T081500Z``), fractions of a second, another offset, no offset, a
+leap second (``:60``), a date that does not exist. Times lie from 1970-01-01T00:00:00Z
+(``TIME_MIN``) to 9999-12-31T23:59:59Z (``TIME_MAX``): a calibration before 1970 is a typo,
+and every time in range can be written back in the same form.
+"""
 
 from __future__ import annotations
 
+import calendar
+import re
 from datetime import UTC, datetime
 
 from hosttool.errors import InputError
+from hosttool.util.text import shown
+
+#: Seconds since 1970 UTC of the first and the last time accepted.
+TIME_MIN = 0
+TIME_MAX = 253_402_300_799          # 9999-12-31T23:59:59Z
+
+#: The accepted forms (ASCII digits only).
+TIME_RE = re.compile(r"([0-9]{4})-([0-9]{2})-([0-9]{2})T([0-9]{2}):([0-9]{2}):([0-9]{2})"
+                     r"(?:Z|\+00:00)")
+EXAMPLE = "2025-03-04T08:15:00Z"
+FORMS = "YYYY-MM-DDThh:mm:ssZ or YYYY-MM-DDThh:mm:ss+00:00"
 
 
 def parse_time_utc(text: str, where: str) -> int:
-    """ISO 8601 with an explicit UTC offset (Z or +00:00) to whole seconds since 1970."""
+    """ISO 8601 UTC text (one of the two forms above) to whole seconds since 1970."""
+    match = TIME_RE.fullmatch(text.strip())
+    if match is None:
+        raise InputError(f"{where}: {shown(text)} is not a UTC time of the form {FORMS} "
+                         f"(e.g. {EXAMPLE})")
+    year, month, day, hour, minute, second = (int(g) for g in match.groups())
     try:
-        stamp = datetime.fromisoformat(text.strip())
-    except ValueError:
-        raise InputError(f"{where}: {text!r} is not an ISO 8601 time such as "
-                         "2025-03-04T08:15:00Z") from None
-    if stamp.tzinfo is None or stamp.utcoffset() != UTC.utcoffset(None):
-        raise InputError(f"{where}: {text!r} must be in UTC (end it with Z)")
-    if stamp.microsecond:
-        raise InputError(f"{where}: {text!r}: give whole seconds")
-    return int(stamp.timestamp())
+        stamp = datetime(year, month, day, hour, minute, second, tzinfo=UTC)
+    except ValueError as exc:
+        raise InputError(f"{where}: {shown(text)} is not a valid time: {exc}") from None
+    seconds = calendar.timegm(stamp.utctimetuple())
+    check_time_range(seconds, where)
+    return seconds
+
+
+def check_time_range(seconds: int, where: str) -> None:
+    """Refuse a time outside 1970-01-01T00:00:00Z .. 9999-12-31T23:59:59Z."""
+    if not TIME_MIN <= seconds <= TIME_MAX:
+        raise InputError(f"{where}: {seconds} s since 1970 lies outside the times this tool "
+                         "accepts (1970-01-01T00:00:00Z .. 9999-12-31T23:59:59Z)")
 
 
 def format_time_utc(seconds: int) -> str:
-    """Seconds since 1970 UTC as ISO 8601 ending in Z."""
+    """Seconds since 1970 UTC (``TIME_MIN`` .. ``TIME_MAX``) as ISO 8601 ending in Z."""
+    check_time_range(seconds, "time")
     return datetime.fromtimestamp(seconds, UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+
