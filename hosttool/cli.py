@@ -132,6 +132,22 @@ def render(spec: Path, folder: Path, calibration: Path | None, force: bool) -> N
 
 
 @main.command()
+@click.option("-o", "--output", "folder", required=True,
+              type=click.Path(file_okay=False, path_type=Path),
+              help="Folder to write the firmware into (created if missing).")
+@click.option("--spec", "spec", type=click.Path(dir_okay=False, path_type=Path),
+              help="Also render this spec's headers (include/) and check vectors (vectors/).")
+@click.option("--force", is_flag=True, help="Overwrite files edited since hosttool wrote them.")
+@guarded
+def firmware(folder: Path, spec: Path | None, force: bool) -> None:
+    """Write the C reference firmware with its Makefile and CMakeLists.txt into a folder."""
+    from hosttool.commands.firmware import firmware_text, run_firmware
+
+    written = run_firmware(folder, spec=spec, force=force)
+    click.echo(firmware_text(written, folder, with_spec=spec is not None), nl=False)
+
+
+@main.command()
 @click.argument("path", type=click.Path(dir_okay=False, path_type=Path))
 @click.option("--example", "example", default="hive_scale", show_default=True,
               help="Which bundled example to start from.")

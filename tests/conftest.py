@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import os
+import shutil
 
 import pytest
 
@@ -19,6 +20,17 @@ def require_tools(kind: str, *, run: bool) -> None:
     if not missing:
         return
     reason = f"{kind} needs {', '.join(missing)} on PATH"
+    if os.environ.get("CI") == "true":
+        pytest.fail(f"{reason} (CI=true: missing tools fail instead of skipping)")
+    pytest.skip(reason)
+
+
+def require_programs(*names: str) -> None:
+    """Skip the test when a program it runs (make, cmake ...) is not on PATH; fail under CI."""
+    missing = [n for n in names if shutil.which(n) is None]
+    if not missing:
+        return
+    reason = f"needs {', '.join(missing)} on PATH"
     if os.environ.get("CI") == "true":
         pytest.fail(f"{reason} (CI=true: missing tools fail instead of skipping)")
     pytest.skip(reason)
