@@ -7,9 +7,21 @@
 
 #include HT_D(CALBLOCK_HEADER_NAME)
 
-/* The generated header formats and block layout this loader is written for. */
-#if HT_D(CALBLOCK_HEADER_FORMAT) != 1 || HT_D(CALBLOCK_LAYOUT_VERSION) != 1
-#error "the calibration-block header is not the format or layout ht_calblock.c reads"
+/*
+ * The generated header formats and block layouts this loader is written for. Headers of
+ * layout 2 bind blocks to the design's format identity (format_id) and still accept a
+ * layout-1 block whose spec hash is this spec's; headers of layout 1 (hosttool 0.2) accept
+ * layout-1 blocks only, as the firmware of that version did.
+ */
+#if HT_D(CALBLOCK_HEADER_FORMAT) != 1
+#error "the calibration-block header is not the format ht_calblock.c reads"
+#endif
+#if HT_D(CALBLOCK_LAYOUT_VERSION) == 2
+#define HT_BINDING_FIELD FORMAT_ID
+#elif HT_D(CALBLOCK_LAYOUT_VERSION) == 1
+#define HT_BINDING_FIELD SPEC_HASH
+#else
+#error "the calibration-block header is not a layout ht_calblock.c reads"
 #endif
 #if HT_D(CALBLOCK_SPEC_ID) != HT_D(DESIGN_SPEC_ID)
 #error "the design and calibration-block headers were rendered from different specs"
@@ -51,6 +63,43 @@ static int32_t ht_le_i32(const uint8_t *b, size_t at)
 }
 
 #define HT_FIELD(name) ((size_t)HT_D(CALBLOCK_OFFSET_##name))
+#define HT_FIELD_OF(name) HT_FIELD(name)
+
+/* The 8 binding bytes of the block at `b`: equal to `expected`? */
+static int ht_same_binding(const uint8_t *b, const uint8_t *expected)
+{
+    size_t i;
+
+    for (i = 0u; i < 8u; ++i) {
+        if (b[HT_FIELD_OF(HT_BINDING_FIELD) + i] != expected[i]) {
+            return 0;
+        }
+    }
+    return 1;
+}
+
+/*
+ * The block's binding against this design: HT_CAL_OK, HT_CAL_OTHER_DESIGN (layout 2,
+ * format identity differs), HT_CAL_OTHER_SPEC (layout 1, spec hash differs) or
+ * HT_CAL_BAD_VERSION.
+ */
+static ht_cal_status_t ht_binding(const uint8_t *b)
+{
+    static const uint8_t spec_hash[8] = HT_D(CALBLOCK_SPEC_HASH_BYTES);
+    unsigned version = ht_le_u16(b, HT_FIELD(LAYOUT_VERSION));
+
+#if HT_D(CALBLOCK_LAYOUT_VERSION) == 2
+    static const uint8_t format_id[8] = HT_D(CALBLOCK_FORMAT_ID_BYTES);
+
+    if (version == 2u) {
+        return ht_same_binding(b, format_id) ? HT_CAL_OK : HT_CAL_OTHER_DESIGN;
+    }
+#endif
+    if (version == 1u) {
+        return ht_same_binding(b, spec_hash) ? HT_CAL_OK : HT_CAL_OTHER_SPEC;
+    }
+    return HT_CAL_BAD_VERSION;
+}
 
 /* The block's fields against the compiled design's shifts, counts, flags, reference. */
 static int ht_same_format(const uint8_t *b)
@@ -87,9 +136,8 @@ static int ht_in_range(const ht_constants_t *c)
 /* Check `b` and read its constants into `c`; HT_CAL_OK when it may be used. */
 static ht_cal_status_t ht_check(const uint8_t *b, size_t len, ht_constants_t *c)
 {
-    static const uint8_t expected_hash[8] = HT_D(CALBLOCK_SPEC_HASH_BYTES);
     const size_t length = (size_t)HT_D(CALBLOCK_LENGTH);
-    size_t i;
+    ht_cal_status_t binding;
 
     if (b == NULL || len < length) {
         return HT_CAL_TOO_SHORT;
@@ -97,7 +145,8 @@ static ht_cal_status_t ht_check(const uint8_t *b, size_t len, ht_constants_t *c)
     if (ht_le_u32(b, HT_FIELD(MAGIC)) != HT_D(CALBLOCK_MAGIC)) {
         return HT_CAL_BAD_MAGIC;
     }
-    if (ht_le_u16(b, HT_FIELD(LAYOUT_VERSION)) != HT_D(CALBLOCK_LAYOUT_VERSION)) {
+    if (ht_le_u16(b, HT_FIELD(LAYOUT_VERSION)) > HT_D(CALBLOCK_LAYOUT_VERSION)
+        || ht_le_u16(b, HT_FIELD(LAYOUT_VERSION)) < 1u) {
         return HT_CAL_BAD_VERSION;
     }
     if (ht_le_u16(b, HT_FIELD(LENGTH)) != length) {
@@ -106,10 +155,9 @@ static ht_cal_status_t ht_check(const uint8_t *b, size_t len, ht_constants_t *c)
     if (ht_crc32_update(HT_CRC32_EMPTY, b, HT_FIELD(CRC32)) != ht_le_u32(b, HT_FIELD(CRC32))) {
         return HT_CAL_BAD_CRC;
     }
-    for (i = 0u; i < sizeof expected_hash; ++i) {
-        if (b[HT_FIELD(SPEC_HASH) + i] != expected_hash[i]) {
-            return HT_CAL_OTHER_SPEC;
-        }
+    binding = ht_binding(b);
+    if (binding != HT_CAL_OK) {
+        return binding;
     }
     if (!ht_same_format(b)) {
         return HT_CAL_OTHER_FORMAT;
@@ -118,7 +166,7 @@ static ht_cal_status_t ht_check(const uint8_t *b, size_t len, ht_constants_t *c)
     c->offset = ht_le_i32(b, HT_FIELD(OFFSET));
     c->scale_mul = ht_le_i32(b, HT_FIELD(SCALE_MUL));
 #if HT_D(HAS_LINEARISATION)
-    for (i = 0u; i < (size_t)HT_D(LIN_COUNT); ++i) {
+    for (size_t i = 0u; i < (size_t)HT_D(LIN_COUNT); ++i) {
         c->lin[i] = ht_le_i32(b, HT_FIELD(LIN) + 4u * i);
     }
 #endif
@@ -161,6 +209,8 @@ const char *ht_cal_status_text(ht_cal_status_t status)
         return "bad CRC";
     case HT_CAL_OTHER_SPEC:
         return "made for another spec";
+    case HT_CAL_OTHER_DESIGN:
+        return "made for another design";
     case HT_CAL_OTHER_FORMAT:
         return "shifts or counts differ from the design";
     case HT_CAL_OUT_OF_RANGE:

@@ -1,5 +1,5 @@
 /*
- * ht_calblock.h - loader of the per-unit calibration block (layout version 1).
+ * ht_calblock.h - loader of the per-unit calibration block (layout versions 1 and 2).
  *
  * The block's layout comes from the generated calibration-block header (its name is the
  * design header's CALBLOCK_HEADER_NAME); fields are read byte by byte at their offsets,
@@ -7,8 +7,10 @@
  * block in memory.
  *
  * A block is accepted only if everything holds: length, magic, layout version, length
- * field, CRC-32 (ht_crc32.h), spec hash and every shift, count and flag equal to the
- * compiled design, and constants inside the limits the design's range proof assumed. On
+ * field, CRC-32 (ht_crc32.h), binding (layout 2: the design's format identity, which
+ * survives spec edits that leave the constants' meaning alone; layout 1: the spec's hash),
+ * every shift, count and flag equal to the compiled design, and constants inside the
+ * limits the design's range proof assumed. On
  * any mismatch the compiled-in defaults are put in force and the pipeline is flagged
  * uncalibrated.
  */
@@ -28,7 +30,8 @@ typedef enum {
     HT_CAL_BAD_VERSION,     /* another layout version */
     HT_CAL_BAD_LENGTH,      /* its length field differs from the layout's */
     HT_CAL_BAD_CRC,         /* contents damaged */
-    HT_CAL_OTHER_SPEC,      /* made for another spec (spec hash differs) */
+    HT_CAL_OTHER_SPEC,      /* layout 1: made for another spec (spec hash differs) */
+    HT_CAL_OTHER_DESIGN,    /* layout 2: made for another design (format identity differs) */
     HT_CAL_OTHER_FORMAT,    /* shifts, guard bits, counts, flags or reference differ */
     HT_CAL_OUT_OF_RANGE     /* a constant beyond what the design's proof covers */
 } ht_cal_status_t;

@@ -249,12 +249,13 @@ def test_failing_unit_exits_1_and_gets_no_image(tmp_path: Path) -> None:
 
 
 def test_calibration_for_another_spec_is_refused(tmp_path: Path) -> None:
-    """Source: the spec hash (SHA-256 of the canonical spec) stored in CAL.json."""
+    """Source: the format identity stored in CAL.json (SHA-256 of its items, hashlib)."""
     readings = _write_lot(tmp_path, HIVE, [TRUTH])
     _cli("calibrate", str(EXAMPLES / "hive_scale.toml"), str(readings), "--serial", "SN0001",
          "-o", str(tmp_path / "cal.json"))
     other = _design((EXAMPLES / "fatigue_coupon.toml").read_text(), "fatigue_coupon.toml")
-    with pytest.raises(InputError, match=r"spec\.sha256: made for spec 'hive_scale'"):
+    with pytest.raises(InputError, match=r"identity: made for spec 'hive_scale', another design "
+                       r"\(chain\.guard_bits 6 -> 5; "):
         load_calibration(tmp_path / "cal.json", other)
     code, _, err = _cli("image", str(EXAMPLES / "fatigue_coupon.toml"),
                         str(tmp_path / "cal.json"), "-o", str(tmp_path / "x.hex"))

@@ -219,9 +219,9 @@ def _damaged(block: bytes) -> list[tuple[str, bytes]]:
         out.append((f"bit {i}", bytes(flipped)))
     out.append(("truncated", block[:-1]))
     version = bytearray(block)
-    struct.pack_into("<H", version, calblock.offsets()["layout_version"], 2)
+    struct.pack_into("<H", version, calblock.offsets()["layout_version"], 3)
     struct.pack_into("<I", version, BLOCK_SIZE - 4, zlib.crc32(bytes(version[:-4])))
-    out.append(("version 2", bytes(version)))
+    out.append(("version 3", bytes(version)))
     return out
 
 

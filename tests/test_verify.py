@@ -169,9 +169,10 @@ def test_verify_one_units_constants(tmp_path: Path) -> None:
 def test_calibration_of_another_spec_is_refused(tmp_path: Path) -> None:
     cal = _unit_calibration(tmp_path)
     other = tmp_path / "other.toml"
+    # another output step changes what the constants mean (format identity, DEVELOPERS.md)
     other.write_text((EXAMPLES / "hive_scale.toml").read_text().replace(
-        "capacity = 200.0", "capacity = 300.0"))
+        "resolution = 0.01", "resolution = 0.005"))
     result = CliRunner().invoke(main, ["verify", str(other), "--calibration", str(cal)])
     assert result.exit_code == 2
     assert result.stderr.count("\n") == 1 and "Traceback" not in result.stderr
-    assert str(cal) in result.stderr
+    assert str(cal) in result.stderr and "output.resolution 0.01 -> 0.005" in result.stderr

@@ -13,6 +13,7 @@ from typing import Any
 
 from hosttool.design.filters import BiquadStage, FirStage
 from hosttool.design.fixedpoint import INT32_MAX, INT32_MIN, QFormat
+from hosttool.design.identity import IDENTITY_TAG
 from hosttool.design.resolve import LIN_FRAC, Design, offset_limit
 from hosttool.errors import DesignError
 from hosttool.formats import calblock
@@ -212,7 +213,10 @@ def calblock_context(d: Design) -> dict[str, Any]:
     fields = [{"name": f.name, "ctype": f.ctype, "count": f.count, "doc": f.doc,
                "offset": offsets[f.name], "size": f.size} for f in calblock.LAYOUT]
     flags = calblock.design_flags(d)
-    return {"magic": calblock.MAGIC, "layout_version": calblock.LAYOUT_VERSION,
+    identity = calblock.format_identity(d)
+    return {"identity": identity.items, "format_id": list(identity.digest),
+            "identity_tag": IDENTITY_TAG,
+            "magic": calblock.MAGIC, "layout_version": calblock.LAYOUT_VERSION,
             "length": calblock.BLOCK_SIZE, "fields": fields,
             "address": target.calblock_address if target else None, "size": size,
             "spec_hash8": list(calblock.spec_hash8(d)), "flags": flags,

@@ -7,7 +7,7 @@ from typing import Any
 
 from hosttool.commands.calibrate import columns, unit_constant_rows
 from hosttool.design.resolve import Design, UnitConstants, make_design
-from hosttool.formats.calblock import BLOCK_SIZE, LAYOUT_VERSION, CalBlock
+from hosttool.formats.calblock import BLOCK_SIZE, CalBlock
 from hosttool.formats.caljson import constants_json
 from hosttool.formats.hexfile import ERASED, block_area, read_block
 from hosttool.spec.schema import load_spec
@@ -19,9 +19,11 @@ def inspect_json(path: Path, design: Design, block: CalBlock, area: bytes) -> di
     address, size = block_area(design)
     return {
         "file": path.name, "address": f"0x{address:08X}", "area_bytes": size,
-        "block_bytes": BLOCK_SIZE, "layout_version": LAYOUT_VERSION,
-        "crc32": f"0x{block.crc32:08X}", "crc_ok": True, "spec_hash": block.spec_hash.hex(),
-        "spec_matches": True, "serial": block.serial,
+        "block_bytes": BLOCK_SIZE, "layout_version": block.layout_version,
+        "crc32": f"0x{block.crc32:08X}", "crc_ok": True,
+        "format_id": block.binding.hex() if block.layout_version >= 2 else None,
+        "spec_hash": block.binding.hex() if block.layout_version == 1 else None,
+        "identity_matches": True, "serial": block.serial,
         "cal_time_utc": format_time_utc(block.cal_time_utc), "flags": block.flags,
         "constants": constants_json(block.constants),
         "values": {name: real for name, _, real in unit_constant_rows(design, block.constants)},
@@ -35,7 +37,10 @@ def inspect_text(data: dict[str, Any], design: Design, constants: UnitConstants)
                                                 f"bytes, block {data['block_bytes']})"),
             ("layout version", str(data["layout_version"])),
             ("CRC-32", f"{data['crc32']} (matches the contents)"),
-            ("spec hash", f"{data['spec_hash']} (matches {design.spec.name})"),
+            (("format identity", f"{data['format_id']} (matches {design.spec.name})")
+             if data["format_id"] else
+             ("spec hash", f"{data['spec_hash']} (layout 1: matches {design.spec.name} while "
+                           "its text is unchanged)")),
             ("serial", data["serial"]), ("calibrated", data["cal_time_utc"]),
             ("flags", f"0x{data['flags']:02X}"),
             ("padding", "erased (0xFF)" if data["padding_erased"] else "NOT erased")]

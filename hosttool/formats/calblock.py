@@ -4,6 +4,14 @@
 size and field-offset assertions from it, and ``encode``/``decode`` pack and unpack it with
 ``struct``. Every field lies at its natural alignment, so the C struct needs no packing
 attribute. The CRC-32 (ISO-HDLC, as zlib.crc32) covers every byte before it.
+
+Layout 2 binds a block to the design's *format identity* (design/identity.py plus this
+layout's version): the first 8 bytes of a SHA-256 of exactly what gives the block's integers
+their meaning. A description, limit or filter edit leaves it alone, so blocks made before such
+an edit stay valid. Layout 1 (hosttool 0.2 and earlier) had the same bytes in the same places
+but bound the block to the first 8 bytes of the whole spec's SHA-256; such a block is still
+read and accepted while the spec is unchanged, and ``encode(..., layout_version=1)`` can still
+make one (for tests of firmware in the field).
 """
 
 from __future__ import annotations
@@ -13,11 +21,20 @@ import zlib
 from dataclasses import dataclass
 from typing import Any
 
+from hosttool.design.identity import (
+    ABSENT,
+    FormatIdentity,
+    IdentityItem,
+    design_identity,
+    differences,
+)
 from hosttool.design.resolve import Design, UnitConstants
 from hosttool.errors import DesignError, InputError
 
 MAGIC = 0x42435448            # the bytes "HTCB" read as a little-endian uint32
-LAYOUT_VERSION = 1
+LAYOUT_VERSION = 2
+#: Layout versions ``decode`` reads: 1 bound to the spec's hash, 2 to the format identity.
+READABLE_VERSIONS = (1, 2)
 SERIAL_BYTES = 16
 LIN_SLOTS = 6
 FLAG_LINEARISATION = 0x01
@@ -42,11 +59,12 @@ class Field:
 
 LAYOUT: tuple[Field, ...] = (
     Field("magic", "I", 1, "uint32_t", "0x42435448, \"HTCB\" in memory"),
-    Field("layout_version", "H", 1, "uint16_t", "layout of this struct, 1"),
+    Field("layout_version", "H", 1, "uint16_t",
+          "layout of this struct, 2 (1: binding is the spec's hash)"),
     Field("length", "H", 1, "uint16_t", "bytes from magic to crc32 inclusive"),
     Field("serial", "c", SERIAL_BYTES, "char", "unit serial, ASCII, NUL padded"),
     Field("cal_time_utc", "q", 1, "int64_t", "calibration time, seconds since 1970 UTC"),
-    Field("spec_hash", "B", 8, "uint8_t", "first 8 bytes of the spec's SHA-256"),
+    Field("format_id", "B", 8, "uint8_t", "the design's format identity (8 bytes)"),
     Field("offset", "i", 1, "int32_t", "zero, ADC counts x 2^G"),
     Field("scale_mul", "i", 1, "int32_t", "span multiplier M"),
     Field("scale_shift", "B", 1, "uint8_t", "span shift S (must equal the design's)"),
@@ -84,9 +102,10 @@ def offsets() -> dict[str, int]:
 class CalBlock:
     """A decoded calibration block."""
 
+    layout_version: int
     serial: str
     cal_time_utc: int
-    spec_hash: bytes
+    binding: bytes              # format identity (layout 2) or the spec's hash (layout 1)
     constants: UnitConstants
     scale_shift: int
     guard_bits: int
@@ -118,27 +137,45 @@ def check_lin_slots(count: int, source: str) -> None:
 
 
 def spec_hash8(design: Design) -> bytes:
-    """The first 8 bytes of the spec's SHA-256 (the block's spec hash)."""
+    """The first 8 bytes of the spec's SHA-256 (what a layout-1 block is bound to)."""
     return bytes.fromhex(design.spec.sha256)[:8]
 
 
-def encode(design: Design, constants: UnitConstants, *, serial: str, cal_time_utc: int) -> bytes:
-    """The block's bytes for one unit (exactly BLOCK_SIZE; CRC last)."""
+def format_identity(design: Design) -> FormatIdentity:
+    """The design's format identity with this block layout's version as its last item."""
+    return design_identity(design).extended(IdentityItem("block.layout_version",
+                                                         str(LAYOUT_VERSION)))
+
+
+def binding_of(design: Design, layout_version: int) -> bytes:
+    """The 8 bytes a block of ``layout_version`` made for ``design`` carries."""
+    return format_identity(design).digest if layout_version == 2 else spec_hash8(design)
+
+
+def encode(design: Design, constants: UnitConstants, *, serial: str, cal_time_utc: int,
+           layout_version: int = LAYOUT_VERSION) -> bytes:
+    """The block's bytes for one unit (exactly BLOCK_SIZE; CRC last).
+
+    ``layout_version`` 1 makes a block as hosttool 0.2 did (bound to the spec's hash), for
+    tests of the firmware already in the field.
+    """
+    if layout_version not in READABLE_VERSIONS:
+        raise InputError(f"layout version {layout_version}: this tool writes "
+                         f"{READABLE_VERSIONS}")
     raw_serial = serial.encode("ascii", errors="strict") if serial.isascii() else b""
     if not raw_serial or len(raw_serial) > SERIAL_BYTES or not serial.isprintable():
         raise InputError(f"serial {serial!r}: must be 1 to {SERIAL_BYTES} printable ASCII "
                          "characters")
     temp = design.temperature
     check_lin_slots(len(constants.lin), design.spec.source)
-    flags = design_flags(design)
     lin_values = list(constants.lin) + [0] * (LIN_SLOTS - len(constants.lin))
     values: list[object] = [
-        MAGIC, LAYOUT_VERSION, BLOCK_SIZE,
+        MAGIC, layout_version, BLOCK_SIZE,
         *[bytes([b]) for b in raw_serial.ljust(SERIAL_BYTES, b"\0")],
-        cal_time_utc, *spec_hash8(design),
+        cal_time_utc, *binding_of(design, layout_version),
         constants.offset, constants.scale_mul, design.scale.shift, design.guard_bits,
-        len(constants.lin), flags, *lin_values, constants.tc_zero, constants.tc_span,
-        temp.zero_shift if temp else 0, temp.span_shift if temp else 0, 0, 0,
+        len(constants.lin), design_flags(design), *lin_values, constants.tc_zero,
+        constants.tc_span, temp.zero_shift if temp else 0, temp.span_shift if temp else 0, 0, 0,
         temp.reference_centi if temp else 0, 0,
     ]
     body = struct.pack(STRUCT_FORMAT, *values)[:-4]
@@ -159,9 +196,9 @@ def decode(data: bytes) -> CalBlock:
     if named["magic"] != MAGIC:
         raise InputError(f"calibration block: magic 0x{named['magic']:08X}, expected "
                          f"0x{MAGIC:08X} (no block here?)")
-    if named["layout_version"] != LAYOUT_VERSION:
+    if named["layout_version"] not in READABLE_VERSIONS:
         raise InputError(f"calibration block: layout version {named['layout_version']}, this "
-                         f"tool reads {LAYOUT_VERSION}")
+                         f"tool reads {' and '.join(map(str, READABLE_VERSIONS))}")
     if named["length"] != BLOCK_SIZE:
         raise InputError(f"calibration block: length {named['length']}, expected {BLOCK_SIZE}")
     crc = zlib.crc32(data[:-4])
@@ -172,19 +209,64 @@ def decode(data: bytes) -> CalBlock:
     lin = tuple(int(v) for v in named["lin"][: named["lin_count"]])
     constants = UnitConstants(offset=named["offset"], scale_mul=named["scale_mul"], lin=lin,
                               tc_zero=named["tc_zero"], tc_span=named["tc_span"])
-    return CalBlock(serial=serial, cal_time_utc=named["cal_time_utc"],
-                    spec_hash=bytes(named["spec_hash"]), constants=constants,
+    return CalBlock(layout_version=named["layout_version"], serial=serial,
+                    cal_time_utc=named["cal_time_utc"], binding=bytes(named["format_id"]),
+                    constants=constants,
                     scale_shift=named["scale_shift"], guard_bits=named["guard_bits"],
                     flags=named["flags"], tc_zero_shift=named["tc_zero_shift"],
                     tc_span_shift=named["tc_span_shift"],
                     ref_temp_centi=named["ref_temp_centi"], crc32=named["crc32"])
 
 
+def carried_items(block: CalBlock) -> dict[str, str]:
+    """The identity items a block carries in its own fields, as identity text."""
+    lin = bool(block.flags & FLAG_LINEARISATION)
+    temp = bool(block.flags & FLAG_TEMPERATURE)
+    absent = ABSENT
+    return {
+        "chain.guard_bits": str(block.guard_bits),
+        "scale.shift": str(block.scale_shift),
+        "linearisation.count": str(len(block.constants.lin)) if lin else "0",
+        "temperature.zero_shift": str(block.tc_zero_shift) if temp else absent,
+        "temperature.span_shift": str(block.tc_span_shift) if temp else absent,
+        "temperature.reference_centi": str(block.ref_temp_centi) if temp else absent,
+        "block.layout_version": str(block.layout_version),
+    }
+
+
+def identity_mismatch(block: CalBlock, design: Design) -> str | None:
+    """Why ``block`` is not for ``design`` (None when its binding matches), naming the item.
+
+    The items the block carries (shifts, guard bits, coefficient count, temperature
+    reference) are compared one by one; when they all agree the differing item is one the
+    block holds only through its hash, and the message lists those.
+    """
+    if block.binding == binding_of(design, block.layout_version):
+        return None
+    if block.layout_version == 1:
+        return (f"layout-1 block bound to spec hash {block.binding.hex()}, this spec's is "
+                f"{spec_hash8(design).hex()}: made for another spec text (layout-1 blocks stay "
+                "valid only while the spec is unchanged; issue a new block from the unit's "
+                "CAL.json with hosttool image)")
+    ident = format_identity(design)
+    expected = ident.as_dict()
+    carried = carried_items(block)
+    named = differences(carried, {k: expected[k] for k in carried})
+    head = (f"made for another design: format identity {block.binding.hex()}, this "
+            f"design's is {ident.hex}")
+    if named:
+        return f"{head} (block -> this design: {'; '.join(named)})"
+    hidden = [k for k in expected if k not in carried]
+    return (f"{head}; the items the block carries agree, so one it holds only in the hash "
+            f"differs: {', '.join(hidden)}")
+
+
 def check_against(block: CalBlock, design: Design, source: str) -> None:
-    """Refuse a block made for another spec or another fixed-point layout."""
-    if block.spec_hash != spec_hash8(design):
-        raise InputError(f"{source}: the block's spec hash {block.spec_hash.hex()} is not this "
-                         f"spec's ({spec_hash8(design).hex()}): made for another spec")
+    """Refuse a block made for another design (format identity, naming the item), or another
+    spec (layout 1), or whose fields disagree with the design."""
+    why = identity_mismatch(block, design)
+    if why is not None:
+        raise InputError(f"{source}: {why}")
     temp = design.temperature
     expected = (design.scale.shift, design.guard_bits,
                 temp.zero_shift if temp else 0, temp.span_shift if temp else 0)

@@ -3,7 +3,9 @@
 Top-level keys (format_version 1): format ("hosttool-calibration"), format_version,
 tool_version, spec {name, sha256}, serial, cal_time_utc (ISO 8601, Z), readings {file,
 sha256}, unit (output unit), formats {guard_bits, scale_shift, lin_norm_shift,
-tc_zero_shift, tc_span_shift}, constants {offset, scale_mul, lin, tc_zero, tc_span},
+tc_zero_shift, tc_span_shift}, identity {format_id, items} (the design's format identity,
+formats/calblock.py; files without it are bound to spec.sha256),
+constants {offset, scale_mul, lin, tc_zero, tc_span},
 verdict ("pass"/"fail"), reasons, criteria, figures, rounding, points, cautions. The same
 readings give the same bytes (no wall-clock time inside).
 """
@@ -15,8 +17,10 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from hosttool.design.identity import differences
 from hosttool.design.resolve import Design, UnitConstants
 from hosttool.errors import InputError
+from hosttool.formats.calblock import format_identity
 from hosttool.formats.readings import SERIAL_RE
 from hosttool.util.utctime import parse_time_utc
 
@@ -40,6 +44,33 @@ def formats(design: Design) -> dict[str, int | None]:
             "lin_norm_shift": lin.norm_shift if lin else None,
             "tc_zero_shift": tc.zero_shift if tc else None,
             "tc_span_shift": tc.span_shift if tc else None}
+
+
+def identity_json(design: Design) -> dict[str, Any]:
+    """The design's format identity as CAL.json keeps it: digest and items."""
+    ident = format_identity(design)
+    return {"format_id": ident.hex, "items": ident.as_dict()}
+
+
+def _check_binding(data: dict[str, Any], design: Design, where: str) -> None:
+    """A file with an identity must match the design's item by item (spec edits that leave
+    the constants' meaning alone are fine); one without is bound to the spec's SHA-256."""
+    if "identity" in data:
+        ident = _get(data, "identity", dict, where)
+        items = _get(ident, "items", dict, f"{where}: identity")
+        changed = differences({str(k): str(v) for k, v in items.items()},
+                              format_identity(design).as_dict())
+        if changed:
+            name = data["spec"].get("name") if isinstance(data.get("spec"), dict) else None
+            raise InputError(f"{where}: identity: made for spec {name!r}, another design "
+                             f"({'; '.join(changed)}); calibrate again")
+        return
+    spec = _get(data, "spec", dict, where)
+    sha = _get(spec, "sha256", str, f"{where}: spec")
+    if sha != design.spec.sha256:
+        raise InputError(f"{where}: spec.sha256: made for spec {spec.get('name')!r} "
+                         f"({sha[:16]}...), not {design.spec.source} "
+                         f"({design.spec.sha256[:16]}...)")
 
 
 def constants_json(c: UnitConstants) -> dict[str, Any]:
@@ -81,12 +112,8 @@ def read_calfile(path: Path, design: Design) -> CalRecord:
     if _get(data, "format_version", int, where) != FORMAT_VERSION:
         raise InputError(f"{where}: format_version: {data['format_version']}, this tool reads "
                          f"{FORMAT_VERSION}")
-    spec = _get(data, "spec", dict, where)
-    sha = _get(spec, "sha256", str, f"{where}: spec")
-    if sha != design.spec.sha256:
-        raise InputError(f"{where}: spec.sha256: made for spec {spec.get('name')!r} "
-                         f"({sha[:16]}...), not {design.spec.source} "
-                         f"({design.spec.sha256[:16]}...)")
+    _get(_get(data, "spec", dict, where), "sha256", str, f"{where}: spec")
+    _check_binding(data, design, where)
     found = _get(data, "formats", dict, where)
     if found != formats(design):
         raise InputError(f"{where}: formats: {found} differ from this design's "

@@ -116,8 +116,9 @@ def read_area(path: Path, design: Design) -> bytes:
 
 
 def read_block(path: Path, design: Design) -> tuple[CalBlock, bytes]:
-    """Decode and check the block in an image: CRC, layout, spec hash, formats, and that
-    encoding the decoded block gives back exactly the same bytes."""
+    """Decode and check the block in an image: CRC, layout, format identity (or the spec
+    hash of a layout-1 block), formats, and that encoding the decoded block gives back exactly
+    the same bytes."""
     area = read_area(path, design)
     try:
         block = decode(area)
@@ -125,7 +126,7 @@ def read_block(path: Path, design: Design) -> tuple[CalBlock, bytes]:
         raise InputError(f"{path}: {exc}") from None
     check_against(block, design, str(path))     # layout, formats and constants
     again = encode(design, block.constants, serial=block.serial,
-                   cal_time_utc=block.cal_time_utc)
+                   cal_time_utc=block.cal_time_utc, layout_version=block.layout_version)
     if again != area[:BLOCK_SIZE]:
         raise InputError(f"{path}: the block decodes but differs from what this design "
                          "encodes for its contents (flags, reference temperature or reserved "

@@ -36,7 +36,13 @@ from hosttool import __version__
 from hosttool.design.model import static_integer
 from hosttool.design.resolve import LIN_FRAC, Design, UnitConstants
 from hosttool.errors import DesignError, InputError
-from hosttool.formats.caljson import FORMAT, FORMAT_VERSION, constants_json, formats
+from hosttool.formats.caljson import (
+    FORMAT,
+    FORMAT_VERSION,
+    constants_json,
+    formats,
+    identity_json,
+)
 from hosttool.formats.readings import UnitReadings
 from hosttool.physics.oiml import max_intervals, mpe_intervals
 from hosttool.util.cautions import SAFETY
@@ -590,6 +596,7 @@ def calibration_json(result: UnitCalibration, design: Design, *, readings_file: 
         "serial": result.serial, "cal_time_utc": format_time_utc(result.cal_time_utc),
         "readings": {"file": readings_file, "sha256": readings_sha256},
         "unit": spec.sensor.unit, "formats": formats(design),
+        "identity": identity_json(design),
         "constants": constants_json(result.constants),
         "verdict": result.verdict, "reasons": list(result.reasons),
         "criteria": [{"key": c.key, "label": c.label, "value": c.value, "limit": c.limit,

@@ -7,7 +7,7 @@
  * longer matches the body hash below, unless forced.
  * spec fatigue_coupon, sha256 15269441c7dbbf5240af85f6bae321748c97d9ee4785454364c4ce68d4b85161
  * defaults: nominal constants of the spec
- * body sha256 517150bbb38d8aaa9a4ef0604959aa1e693681d0fcb723da280c27a609f7e835
+ * body sha256 144197f66ef32e5942db632009660384154c6c5bff8ddecd7738265d74ab94fc
  */
 #ifndef FATIGUE_COUPON_CALBLOCK_H
 #define FATIGUE_COUPON_CALBLOCK_H
@@ -29,13 +29,37 @@
 
 /* "HTCB" in memory, read as a little-endian uint32. */
 #define FATIGUE_COUPON_CALBLOCK_MAGIC 0x42435448u
-#define FATIGUE_COUPON_CALBLOCK_LAYOUT_VERSION 1u
+#define FATIGUE_COUPON_CALBLOCK_LAYOUT_VERSION 2u
 /* Bytes from magic to crc32 inclusive. */
 #define FATIGUE_COUPON_CALBLOCK_LENGTH 96u
 /* Where the block lives in flash, and the bytes reserved for it there. */
 #define FATIGUE_COUPON_CALBLOCK_ADDRESS 0x0807F000u
 #define FATIGUE_COUPON_CALBLOCK_SIZE 128u
-/* First 8 bytes of the spec's SHA-256, as the block's spec_hash must hold them. */
+/*
+ * Format identity: the first 8 bytes of the SHA-256 of the line "hosttool format identity 1"
+ * followed by one "key = value" line per item below: exactly what gives a block's
+ * integers their meaning. A block of layout 2 must carry these bytes in format_id. Spec
+ * edits that leave every item alone (description, limits, filters keeping the guard bits,
+ * calibration plan) keep blocks valid; render names an item that changes and refuses the
+ * change without --force.
+ * identity adc.bits = 24
+ * identity adc.input_scale = ratiometric, PGA 128
+ * identity chain.guard_bits = 5
+ * identity scale.shift = 41
+ * identity coefficient.frac_bits = 30
+ * identity linearisation.form = bridge_inverse
+ * identity linearisation.count = 4
+ * identity linearisation.norm_shift = 20
+ * identity temperature.zero_shift = none
+ * identity temperature.span_shift = none
+ * identity temperature.reference_centi = none
+ * identity temperature.clamp_centi = none
+ * identity output.resolution = 0.1
+ * identity output.unit = ue
+ * identity block.layout_version = 2
+ */
+#define FATIGUE_COUPON_CALBLOCK_FORMAT_ID_BYTES { 0x6F, 0x05, 0xA2, 0xC5, 0xAA, 0x9C, 0xDD, 0x42 }
+/* Blocks of layout 1 (hosttool 0.2) are bound to the first 8 bytes of the spec's SHA-256. */
 #define FATIGUE_COUPON_CALBLOCK_SPEC_HASH_BYTES { 0x15, 0x26, 0x94, 0x41, 0xC7, 0xDB, 0xBF, 0x52 }
 /* flags: bit 0 linearisation, bit 1 temperature; this design's value. */
 #define FATIGUE_COUPON_CALBLOCK_FLAG_LINEARISATION 0x01u
@@ -61,7 +85,7 @@
 #define FATIGUE_COUPON_CALBLOCK_OFFSET_LENGTH 6u
 #define FATIGUE_COUPON_CALBLOCK_OFFSET_SERIAL 8u
 #define FATIGUE_COUPON_CALBLOCK_OFFSET_CAL_TIME_UTC 24u
-#define FATIGUE_COUPON_CALBLOCK_OFFSET_SPEC_HASH 32u
+#define FATIGUE_COUPON_CALBLOCK_OFFSET_FORMAT_ID 32u
 #define FATIGUE_COUPON_CALBLOCK_OFFSET_OFFSET 40u
 #define FATIGUE_COUPON_CALBLOCK_OFFSET_SCALE_MUL 44u
 #define FATIGUE_COUPON_CALBLOCK_OFFSET_SCALE_SHIFT 48u
@@ -79,11 +103,11 @@
 
 typedef struct {
     uint32_t magic; /* +0, 4 bytes: 0x42435448, "HTCB" in memory */
-    uint16_t layout_version; /* +4, 2 bytes: layout of this struct, 1 */
+    uint16_t layout_version; /* +4, 2 bytes: layout of this struct, 2 (1: binding is the spec's hash) */
     uint16_t length; /* +6, 2 bytes: bytes from magic to crc32 inclusive */
     char serial[16]; /* +8, 16 bytes: unit serial, ASCII, NUL padded */
     int64_t cal_time_utc; /* +24, 8 bytes: calibration time, seconds since 1970 UTC */
-    uint8_t spec_hash[8]; /* +32, 8 bytes: first 8 bytes of the spec's SHA-256 */
+    uint8_t format_id[8]; /* +32, 8 bytes: the design's format identity (8 bytes) */
     int32_t offset; /* +40, 4 bytes: zero, ADC counts x 2^G */
     int32_t scale_mul; /* +44, 4 bytes: span multiplier M */
     uint8_t scale_shift; /* +48, 1 byte: span shift S (must equal the design's) */
@@ -110,7 +134,7 @@ typedef char FATIGUE_COUPON_CALBLOCK_CHECK_LAYOUT_VERSION[(offsetof(FATIGUE_COUP
 typedef char FATIGUE_COUPON_CALBLOCK_CHECK_LENGTH[(offsetof(FATIGUE_COUPON_calblock_t, length) == FATIGUE_COUPON_CALBLOCK_OFFSET_LENGTH) ? 1 : -1];
 typedef char FATIGUE_COUPON_CALBLOCK_CHECK_SERIAL[(offsetof(FATIGUE_COUPON_calblock_t, serial) == FATIGUE_COUPON_CALBLOCK_OFFSET_SERIAL) ? 1 : -1];
 typedef char FATIGUE_COUPON_CALBLOCK_CHECK_CAL_TIME_UTC[(offsetof(FATIGUE_COUPON_calblock_t, cal_time_utc) == FATIGUE_COUPON_CALBLOCK_OFFSET_CAL_TIME_UTC) ? 1 : -1];
-typedef char FATIGUE_COUPON_CALBLOCK_CHECK_SPEC_HASH[(offsetof(FATIGUE_COUPON_calblock_t, spec_hash) == FATIGUE_COUPON_CALBLOCK_OFFSET_SPEC_HASH) ? 1 : -1];
+typedef char FATIGUE_COUPON_CALBLOCK_CHECK_FORMAT_ID[(offsetof(FATIGUE_COUPON_calblock_t, format_id) == FATIGUE_COUPON_CALBLOCK_OFFSET_FORMAT_ID) ? 1 : -1];
 typedef char FATIGUE_COUPON_CALBLOCK_CHECK_OFFSET[(offsetof(FATIGUE_COUPON_calblock_t, offset) == FATIGUE_COUPON_CALBLOCK_OFFSET_OFFSET) ? 1 : -1];
 typedef char FATIGUE_COUPON_CALBLOCK_CHECK_SCALE_MUL[(offsetof(FATIGUE_COUPON_calblock_t, scale_mul) == FATIGUE_COUPON_CALBLOCK_OFFSET_SCALE_MUL) ? 1 : -1];
 typedef char FATIGUE_COUPON_CALBLOCK_CHECK_SCALE_SHIFT[(offsetof(FATIGUE_COUPON_calblock_t, scale_shift) == FATIGUE_COUPON_CALBLOCK_OFFSET_SCALE_SHIFT) ? 1 : -1];

@@ -7,7 +7,7 @@
  * longer matches the body hash below, unless forced.
  * spec hive_scale, sha256 af63af9f9a479d259c4132deb379d117c3899eab541910a08258164c5168dfa6
  * defaults: nominal constants of the spec
- * body sha256 b2a09bba2c9c7987a42d0629ecebf2b622c501d267992d89e18eae7ab4cacc06
+ * body sha256 8985c094b8fb7d3ac839907b4874007ad2a9a64ab908d86ec11880da85546e48
  */
 #ifndef HIVE_SCALE_CALBLOCK_H
 #define HIVE_SCALE_CALBLOCK_H
@@ -29,13 +29,37 @@
 
 /* "HTCB" in memory, read as a little-endian uint32. */
 #define HIVE_SCALE_CALBLOCK_MAGIC 0x42435448u
-#define HIVE_SCALE_CALBLOCK_LAYOUT_VERSION 1u
+#define HIVE_SCALE_CALBLOCK_LAYOUT_VERSION 2u
 /* Bytes from magic to crc32 inclusive. */
 #define HIVE_SCALE_CALBLOCK_LENGTH 96u
 /* Where the block lives in flash, and the bytes reserved for it there. */
 #define HIVE_SCALE_CALBLOCK_ADDRESS 0x0003F800u
 #define HIVE_SCALE_CALBLOCK_SIZE 128u
-/* First 8 bytes of the spec's SHA-256, as the block's spec_hash must hold them. */
+/*
+ * Format identity: the first 8 bytes of the SHA-256 of the line "hosttool format identity 1"
+ * followed by one "key = value" line per item below: exactly what gives a block's
+ * integers their meaning. A block of layout 2 must carry these bytes in format_id. Spec
+ * edits that leave every item alone (description, limits, filters keeping the guard bits,
+ * calibration plan) keep blocks valid; render names an item that changes and refuses the
+ * change without --force.
+ * identity adc.bits = 24
+ * identity adc.input_scale = ratiometric, PGA 128
+ * identity chain.guard_bits = 6
+ * identity scale.shift = 43
+ * identity coefficient.frac_bits = 30
+ * identity linearisation.form = none
+ * identity linearisation.count = 0
+ * identity linearisation.norm_shift = none
+ * identity temperature.zero_shift = 36
+ * identity temperature.span_shift = 20
+ * identity temperature.reference_centi = 2000
+ * identity temperature.clamp_centi = -2000 .. 4500
+ * identity output.resolution = 0.01
+ * identity output.unit = kg
+ * identity block.layout_version = 2
+ */
+#define HIVE_SCALE_CALBLOCK_FORMAT_ID_BYTES { 0x50, 0x47, 0x52, 0x79, 0x13, 0xD3, 0x84, 0x8A }
+/* Blocks of layout 1 (hosttool 0.2) are bound to the first 8 bytes of the spec's SHA-256. */
 #define HIVE_SCALE_CALBLOCK_SPEC_HASH_BYTES { 0xAF, 0x63, 0xAF, 0x9F, 0x9A, 0x47, 0x9D, 0x25 }
 /* flags: bit 0 linearisation, bit 1 temperature; this design's value. */
 #define HIVE_SCALE_CALBLOCK_FLAG_LINEARISATION 0x01u
@@ -61,7 +85,7 @@
 #define HIVE_SCALE_CALBLOCK_OFFSET_LENGTH 6u
 #define HIVE_SCALE_CALBLOCK_OFFSET_SERIAL 8u
 #define HIVE_SCALE_CALBLOCK_OFFSET_CAL_TIME_UTC 24u
-#define HIVE_SCALE_CALBLOCK_OFFSET_SPEC_HASH 32u
+#define HIVE_SCALE_CALBLOCK_OFFSET_FORMAT_ID 32u
 #define HIVE_SCALE_CALBLOCK_OFFSET_OFFSET 40u
 #define HIVE_SCALE_CALBLOCK_OFFSET_SCALE_MUL 44u
 #define HIVE_SCALE_CALBLOCK_OFFSET_SCALE_SHIFT 48u
@@ -79,11 +103,11 @@
 
 typedef struct {
     uint32_t magic; /* +0, 4 bytes: 0x42435448, "HTCB" in memory */
-    uint16_t layout_version; /* +4, 2 bytes: layout of this struct, 1 */
+    uint16_t layout_version; /* +4, 2 bytes: layout of this struct, 2 (1: binding is the spec's hash) */
     uint16_t length; /* +6, 2 bytes: bytes from magic to crc32 inclusive */
     char serial[16]; /* +8, 16 bytes: unit serial, ASCII, NUL padded */
     int64_t cal_time_utc; /* +24, 8 bytes: calibration time, seconds since 1970 UTC */
-    uint8_t spec_hash[8]; /* +32, 8 bytes: first 8 bytes of the spec's SHA-256 */
+    uint8_t format_id[8]; /* +32, 8 bytes: the design's format identity (8 bytes) */
     int32_t offset; /* +40, 4 bytes: zero, ADC counts x 2^G */
     int32_t scale_mul; /* +44, 4 bytes: span multiplier M */
     uint8_t scale_shift; /* +48, 1 byte: span shift S (must equal the design's) */
@@ -110,7 +134,7 @@ typedef char HIVE_SCALE_CALBLOCK_CHECK_LAYOUT_VERSION[(offsetof(HIVE_SCALE_calbl
 typedef char HIVE_SCALE_CALBLOCK_CHECK_LENGTH[(offsetof(HIVE_SCALE_calblock_t, length) == HIVE_SCALE_CALBLOCK_OFFSET_LENGTH) ? 1 : -1];
 typedef char HIVE_SCALE_CALBLOCK_CHECK_SERIAL[(offsetof(HIVE_SCALE_calblock_t, serial) == HIVE_SCALE_CALBLOCK_OFFSET_SERIAL) ? 1 : -1];
 typedef char HIVE_SCALE_CALBLOCK_CHECK_CAL_TIME_UTC[(offsetof(HIVE_SCALE_calblock_t, cal_time_utc) == HIVE_SCALE_CALBLOCK_OFFSET_CAL_TIME_UTC) ? 1 : -1];
-typedef char HIVE_SCALE_CALBLOCK_CHECK_SPEC_HASH[(offsetof(HIVE_SCALE_calblock_t, spec_hash) == HIVE_SCALE_CALBLOCK_OFFSET_SPEC_HASH) ? 1 : -1];
+typedef char HIVE_SCALE_CALBLOCK_CHECK_FORMAT_ID[(offsetof(HIVE_SCALE_calblock_t, format_id) == HIVE_SCALE_CALBLOCK_OFFSET_FORMAT_ID) ? 1 : -1];
 typedef char HIVE_SCALE_CALBLOCK_CHECK_OFFSET[(offsetof(HIVE_SCALE_calblock_t, offset) == HIVE_SCALE_CALBLOCK_OFFSET_OFFSET) ? 1 : -1];
 typedef char HIVE_SCALE_CALBLOCK_CHECK_SCALE_MUL[(offsetof(HIVE_SCALE_calblock_t, scale_mul) == HIVE_SCALE_CALBLOCK_OFFSET_SCALE_MUL) ? 1 : -1];
 typedef char HIVE_SCALE_CALBLOCK_CHECK_SCALE_SHIFT[(offsetof(HIVE_SCALE_calblock_t, scale_shift) == HIVE_SCALE_CALBLOCK_OFFSET_SCALE_SHIFT) ? 1 : -1];
