@@ -384,7 +384,7 @@ def test_cortex_m_bit_exact(name: str, target_runners: dict[str, Built]) -> None
     other = next(v for k, v in DESIGNS.items() if k != name)
     refused = target_runners[name](codes[:400], temps if temps is None else temps[:400],
                                    block(other, other.nominal))
-    assert "calblock made for another spec, calibrated 0" in refused.stderr
+    assert "calblock made for another design, calibrated 0" in refused.stderr
     assert np.array_equal(refused.status,
                           run_integer(d, codes[:400], None if temps is None else temps[:400])
                           .status(calibrated=False))

@@ -342,5 +342,7 @@ def test_firmware_loads_old_blocks_after_an_edit(unit: dict[str, Path], tmp_path
         calibrated = 1 if status == "ok" else 0
         assert f"calblock {status}, calibrated {calibrated}" in got.stderr, label
         constants = calblock.decode(data).constants if status == "ok" else d.nominal
-        expected = run_integer(d.with_constants(constants), codes, temps).output
-        assert np.array_equal(got.output, expected), label
+        expected = run_integer(d.with_constants(constants), codes, temps)
+        assert np.array_equal(got.output, expected.output), label
+        # the status word of every output says whether the unit runs calibrated
+        assert np.array_equal(got.status, expected.status(calibrated=status == "ok")), label
