@@ -3,8 +3,8 @@
 The folder gets every file of the package's firmware_stub/ (C sources, the Cortex-M target
 files, the Makefile, CMakeLists.txt and its helper scripts) and, with a design, that
 design's headers in ``include/`` and check vectors in ``vectors/``: ``<name>.in`` (the
-runner's input lines) and ``<name>.expected`` (the integer model's outputs, one decimal per
-line, as ht_runner prints them). ``make check-host`` or ``ctest`` then compare the compiled
+runner's input lines) and ``<name>.expected`` (the integer model's outputs and status
+words, one line each, as ht_runner prints them). ``make check-host`` or ``ctest`` then compare the compiled
 firmware with the model, bit for bit, on the user's own compiler.
 
 Files are written atomically and only when their bytes change, so a build sees no change
@@ -99,11 +99,12 @@ def check_vectors(design: Design, samples: int = CHECK_SAMPLES
 
 def _vector_files(design: Design) -> dict[str, bytes]:
     codes, temps = check_vectors(design)
-    expected = run_integer(design, codes, temps).output
+    model = run_integer(design, codes, temps)
+    lines = (f"{int(v)} 0x{int(s):02x}\n"
+             for v, s in zip(model.output, model.status(calibrated=False), strict=True))
     name = design.spec.name
     return {f"{VECTOR_FOLDER}/{name}.in": runner_input(codes, temps),
-            f"{VECTOR_FOLDER}/{name}.expected":
-                "".join(f"{int(v)}\n" for v in expected).encode("ascii")}
+            f"{VECTOR_FOLDER}/{name}.expected": "".join(lines).encode("ascii")}
 
 
 def _read_manifest(folder: Path) -> dict[str, str]:
