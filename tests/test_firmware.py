@@ -274,11 +274,11 @@ def test_render_with_calibration_file_compiles_unit_defaults(tmp_path: Path) -> 
     d = DESIGNS["hive_scale"]
     unit = unit_constants(d)
     cal = tmp_path / "HS-0042.json"
-    cal.write_text(json.dumps({
+    cal.write_text(json.dumps(calfile.seal({
         "format": calfile.FORMAT, "format_version": calfile.FORMAT_VERSION,
         "spec": {"name": d.spec.name, "sha256": d.spec.sha256}, "serial": "HS-0042",
         "cal_time_utc": "2025-03-04T08:15:00Z", "formats": calfile.formats(d),
-        "constants": calfile.constants_json(unit), "verdict": "pass"}))
+        "constants": calfile.constants_json(unit), "verdict": "pass"})))
     gen = tmp_path / "gen"
     gen.mkdir()
     result = CliRunner().invoke(main, ["render", str(spec), "-o", str(gen),

@@ -14,6 +14,7 @@ from hosttool.formats.caljson import read_passed
 from hosttool.formats.hexfile import (
     block_area,
     block_image,
+    check_block,
     hex_text,
     padded,
     read_hex,
@@ -41,6 +42,7 @@ def run_image(spec_path: Path, cal_path: Path, *, out: Path, merge: Path | None,
     record = read_passed(cal_path, design)
     block = encode(design, record.constants, serial=record.serial,
                    cal_time_utc=record.cal_time_utc)
+    check_block(padded(design, block), design, str(cal_path))   # what inspect checks
     write_atomic(out, image_bytes(design, block, as_bin=as_bin, merge=merge))
     address, size = block_area(design)
     merged = f", merged with {merge}" if merge is not None else ""

@@ -318,12 +318,15 @@ def check_constants(c: UnitConstants, *, bits: int, g: int, scale: Scale,
     if abs(c.scale_mul) > scale.multiplier_limit:
         raise DesignError(f"{source}: span multiplier {c.scale_mul} is beyond the span "
                           "tolerance the design's format holds (calibration.span_tolerance_pct)")
-    if lin is not None and len(c.lin) != len(lin.coeffs):
+    if len(c.lin) != (len(lin.coeffs) if lin is not None else 0):
         raise DesignError(f"{source}: {len(c.lin)} linearisation coefficients given, the "
-                          f"design has {len(lin.coeffs)}")
+                          f"design has {len(lin.coeffs) if lin is not None else 'none'}")
     if lin is not None and (sum(abs(x) for x in c.lin) >= 4 << LIN_FRAC
                             or max(abs(x) for x in c.lin) > INT32_MAX):
         raise DesignError(f"{source}: linearisation coefficients too large for Q1.{LIN_FRAC}")
+    if temp is None and (c.tc_zero or c.tc_span):
+        raise DesignError(f"{source}: temperature coefficients given, the design has no "
+                          "temperature compensation")
     if temp is not None:
         if abs(c.tc_zero) > INT32_MAX or abs(c.tc_span) > INT32_MAX:
             raise DesignError(f"{source}: a temperature coefficient exceeds its format")

@@ -6,12 +6,21 @@ sha256}, unit (output unit), formats {guard_bits, scale_shift, lin_norm_shift,
 tc_zero_shift, tc_span_shift}, identity {format_id, items} (the design's format identity,
 formats/calblock.py; files without it are bound to spec.sha256),
 constants {offset, scale_mul, lin, tc_zero, tc_span},
-verdict ("pass"/"fail"), reasons, criteria, figures, rounding, points, cautions. The same
-readings give the same bytes (no wall-clock time inside).
+verdict ("pass"/"fail"), reasons, criteria, figures, rounding, points, cautions,
+content_sha256. The same readings give the same bytes (no wall-clock time inside).
+
+``content_sha256`` is the SHA-256 (hex) of the file's canonical content: every other key,
+as JSON with sorted keys, no spaces and ASCII escapes (``canonical``). Every reader
+(``image``, ``render --calibration``, ``verify --calibration``) recomputes it and refuses
+a file whose content no longer matches. It catches accidents and careless edits (a verdict
+changed to "pass", a constant typed over), not a determined forger: anyone can recompute
+an unkeyed hash. Against that, the production record (which names each image's SHA-256)
+or a signature with a key the forger does not hold would be needed.
 """
 
 from __future__ import annotations
 
+import hashlib
 import json
 from dataclasses import dataclass
 from pathlib import Path
@@ -26,6 +35,7 @@ from hosttool.util.utctime import parse_time_utc
 
 FORMAT = "hosttool-calibration"
 FORMAT_VERSION = 1
+HASH_KEY = "content_sha256"
 
 @dataclass(frozen=True)
 class CalRecord:
@@ -79,6 +89,29 @@ def constants_json(c: UnitConstants) -> dict[str, Any]:
             "tc_zero": c.tc_zero, "tc_span": c.tc_span}
 
 
+def canonical(data: dict[str, Any]) -> str:
+    """The canonical text of a CAL.json's content: every key but ``HASH_KEY``, sorted, no
+    spaces, ASCII (floats as Python's shortest repr, which reads back to the same value)."""
+    return json.dumps({k: v for k, v in data.items() if k != HASH_KEY}, sort_keys=True,
+                      separators=(",", ":"), ensure_ascii=True)
+
+
+def seal(data: dict[str, Any]) -> dict[str, Any]:
+    """``data`` with its ``content_sha256`` (last key)."""
+    digest = hashlib.sha256(canonical(data).encode("ascii")).hexdigest()
+    return {**{k: v for k, v in data.items() if k != HASH_KEY}, HASH_KEY: digest}
+
+
+def _check_seal(data: dict[str, Any], where: str) -> None:
+    found = data.get(HASH_KEY)
+    if not isinstance(found, str):
+        raise InputError(f"{where}: {HASH_KEY}: missing: not written by this tool's "
+                         "calibrate, or edited; calibrate the unit again")
+    if found != seal(data)[HASH_KEY]:
+        raise InputError(f"{where}: {HASH_KEY}: does not match the file's content (edited "
+                         "since calibrate wrote it?); calibrate the unit again")
+
+
 def _get(data: dict[str, Any], key: str, kind: type | tuple[type, ...], where: str) -> Any:
     if key not in data:
         raise InputError(f"{where}: {key}: missing")
@@ -106,9 +139,15 @@ def read_calfile(path: Path, design: Design) -> CalRecord:
         raise InputError(f"{path}: cannot read: {exc}") from None
     except json.JSONDecodeError as exc:
         raise InputError(f"{path}:{exc.lineno}: not valid JSON: {exc.msg}") from None
+    except ValueError as exc:            # e.g. an integer of more digits than Python reads
+        raise InputError(f"{path}: not valid JSON: {exc}") from None
+    except RecursionError:
+        raise InputError(f"{path}: not a hosttool calibration file: nested too deeply") \
+            from None
     where = str(path)
     if not isinstance(data, dict) or data.get("format") != FORMAT:
         raise InputError(f"{where}: format: not a hosttool calibration file")
+    _check_seal(data, where)
     if _get(data, "format_version", int, where) != FORMAT_VERSION:
         raise InputError(f"{where}: format_version: {data['format_version']}, this tool reads "
                          f"{FORMAT_VERSION}")

@@ -24,6 +24,9 @@ from hosttool.formats.calblock import (
     decode,
     encode,
 )
+from hosttool.formats.readings import SERIAL_RE
+from hosttool.util.text import shown
+from hosttool.util.utctime import check_time_range
 
 ERASED = 0xFF
 
@@ -102,10 +105,10 @@ def read_area(path: Path, design: Design) -> bytes:
             data = path.read_bytes()
         except OSError as exc:
             raise InputError(f"{path}: cannot read: {exc.strerror}") from None
-        if len(data) < BLOCK_SIZE:
-            raise InputError(f"{path}: {len(data)} bytes, the calibration block has "
-                             f"{BLOCK_SIZE}")
-        return data[:size]
+        if len(data) != size:
+            raise InputError(f"{path}: {len(data)} bytes; a .bin image is the block's whole "
+                             f"area, {size} bytes (target.calblock_size)")
+        return data
     image = read_hex(path)
     present = image.todict()
     missing = next((a for a in range(address, address + BLOCK_SIZE) if a not in present), None)
@@ -115,20 +118,32 @@ def read_area(path: Path, design: Design) -> bytes:
     return bytes(present.get(a, ERASED) for a in range(address, address + size))
 
 
-def read_block(path: Path, design: Design) -> tuple[CalBlock, bytes]:
-    """Decode and check the block in an image: CRC, layout, format identity (or the spec
-    hash of a layout-1 block), formats, and that encoding the decoded block gives back exactly
-    the same bytes."""
-    area = read_area(path, design)
+def check_block(area: bytes, design: Design, source: str) -> CalBlock:
+    """Every check a block must pass, the same for ``inspect`` (reading) and ``image``
+    (before writing): magic, layout version, length and CRC (what the C loader checks),
+    format identity (or the spec hash of a layout-1 block), shifts, coefficient count,
+    flags and reference temperature against the design, constants inside the design's
+    formats, a valid serial, a calibration time in range, and that encoding the decoded
+    block gives back exactly the same bytes. Every refusal names ``source``."""
     try:
         block = decode(area)
     except InputError as exc:
-        raise InputError(f"{path}: {exc}") from None
-    check_against(block, design, str(path))     # layout, formats and constants
+        raise InputError(f"{source}: {exc}") from None
+    check_against(block, design, source)     # layout, formats and constants
+    if not SERIAL_RE.fullmatch(block.serial):
+        raise InputError(f"{source}: serial: {shown(block.serial)} is not a valid serial "
+                         "(1 to 16 letters, digits, '.', '_' or '-')")
+    check_time_range(block.cal_time_utc, f"{source}: cal_time_utc")
     again = encode(design, block.constants, serial=block.serial,
                    cal_time_utc=block.cal_time_utc, layout_version=block.layout_version)
     if again != area[:BLOCK_SIZE]:
-        raise InputError(f"{path}: the block decodes but differs from what this design "
+        raise InputError(f"{source}: the block decodes but differs from what this design "
                          "encodes for its contents (flags, reference temperature or reserved "
                          "bytes)")
-    return block, area
+    return block
+
+
+def read_block(path: Path, design: Design) -> tuple[CalBlock, bytes]:
+    """Read the block's area from an image and check it (``check_block``)."""
+    area = read_area(path, design)
+    return check_block(area, design, str(path)), area

@@ -42,6 +42,7 @@ from hosttool.formats.caljson import (
     constants_json,
     formats,
     identity_json,
+    seal,
 )
 from hosttool.formats.readings import UnitReadings
 from hosttool.physics.oiml import max_intervals, mpe_intervals
@@ -590,7 +591,7 @@ def calibration_json(result: UnitCalibration, design: Design, *, readings_file: 
                      readings_sha256: str) -> dict[str, Any]:
     """The CAL.json object of one unit."""
     spec = design.spec
-    return {
+    return seal({
         "format": FORMAT, "format_version": FORMAT_VERSION, "tool_version": __version__,
         "spec": {"name": spec.name, "sha256": spec.sha256},
         "serial": result.serial, "cal_time_utc": format_time_utc(result.cal_time_utc),
@@ -609,4 +610,4 @@ def calibration_json(result: UnitCalibration, design: Design, *, readings_file: 
                     "direction": "up" if p.up else "down", "output": p.output,
                     "error": p.error, "linearity": p.linearity} for p in result.points],
         "cautions": list(SAFETY),
-    }
+    })
