@@ -140,21 +140,25 @@ FIELD_CASES = [
     ("cell", "ratiometric = true", 'ratiometric = "yes"', "excitation.ratiometric",
      "ratiometric", "expected true or false, got a string ('yes')"),
     ("cell", "cell_resistance_ohm = 350.0", "cell_resistance_ohm = -350.0",
-     "sensor.cell_resistance_ohm", "cell_resistance_ohm", "must be greater than 0, got -350"),
+     "sensor.cell_resistance_ohm", "cell_resistance_ohm",
+     "must be at least 10, got -350 (one cell's bridge)"),
     ("cell", "cell_resistance_ohm = 350.0", "cell_resistance_ohm = 0",
-     "sensor.cell_resistance_ohm", "cell_resistance_ohm", "must be greater than 0, got 0"),
+     "sensor.cell_resistance_ohm", "cell_resistance_ohm",
+     "must be at least 10, got 0 (one cell's bridge)"),
     ("gauge", "gauge_resistance_ohm = 350.0", "gauge_resistance_ohm = 0.0",
-     "sensor.gauge_resistance_ohm", "gauge_resistance_ohm", "must be greater than 0, got 0"),
+     "sensor.gauge_resistance_ohm", "gauge_resistance_ohm",
+     "must be at least 10, got 0 (gauges are made from 60 ohm to 10 kohm)"),
     ("gauge", "lead_resistance_ohm = 0.5", "lead_resistance_ohm = -0.5",
-     "sensor.lead_resistance_ohm", "lead_resistance_ohm", "must be at least 0, got -0.5"),
+     "sensor.lead_resistance_ohm", "lead_resistance_ohm",
+     "must be at least 0, got -0.5 (each lead)"),
     ("gauge", "gauge_factor = 2.0", "gauge_factor = 0.0", "sensor.gauge_factor",
-     "gauge_factor", "must be greater than 0, got 0"),
+     "gauge_factor", "must be at least 0.5, got 0 (metal foil and wire gauges lie near 2)"),
     ("cell", 'pga_gain = "auto"', "pga_gain = 100", "adc.pga_gain", "pga_gain",
      "100 is not in the ADC's gain set 1, 2, 4, 8, 16, 32, 64, 128"),
     ("cell", 'pga_gain = "auto"', 'pga_gain = "max"', "adc.pga_gain", "pga_gain",
      "expected an integer or \"auto\", got a string ('max')"),
     ("cell", 'pga_gain = "auto"', "pga_gains = [1, 0, 4]", "adc.pga_gains", "pga_gains",
-     "expected a non-empty array of positive integers"),
+     "expected a non-empty array of integers from 1 to 1024"),
     ("cell", "voltage_v = 3.3", "voltage_v = 10.0", "excitation.voltage_v", "voltage_v",
      "10 V exceeds the ADC's maximum reference adc.reference_max_v = 5 V, which a "
      "ratiometric reference must respect"),
@@ -165,7 +169,7 @@ FIELD_CASES = [
     ("cell", "ratiometric = true", "ratiometric = false\nreference_v = 6.0",
      "excitation.reference_v", "reference_v", "6 V exceeds adc.reference_max_v = 5 V"),
     ("cell", "capacity = 20.0", "capacity = 0.0", "sensor.capacity", "capacity",
-     "must be greater than 0, got 0"),
+     "must be at least 1e-06, got 0 (in the output unit; total of all cells)"),
     ("cell", "cutoff_hz = 1.0", "cutoff_hz = 5.0", "filter.stages[1].cutoff_hz", "cutoff_hz",
      "5 Hz is at or above the Nyquist frequency 5 Hz of this stage's 10 samples/s"),
     ("cell", "cutoff_hz = 1.0", "cutoff_hz = 7.5", "filter.stages[1].cutoff_hz", "cutoff_hz",
@@ -448,4 +452,5 @@ def test_bad_spec_through_python_dash_m(tmp_path):
     assert done.returncode == 2
     assert done.stdout == ""
     assert done.stderr == (f"hosttool: error: {path}:{line_of(GAUGE, 'gauge_factor')}: "
-                           "sensor.gauge_factor: must be greater than 0, got 0\n")
+                           "sensor.gauge_factor: must be at least 0.5, got 0 (metal foil and wire "
+                           "gauges lie near 2)\n")

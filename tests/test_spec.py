@@ -167,9 +167,10 @@ def test_syntax_error_has_file_and_line():
 
 @pytest.mark.parametrize("old, new, field, needle, reason", [
     ("gauge_factor = 2.0", "gauge_factor = 0", "sensor.gauge_factor", "gauge_factor",
-     "must be greater than 0, got 0"),
+     "must be at least 0.5, got 0 (metal foil and wire gauges lie near 2)"),
     ("gauge_resistance_ohm = 350.0", "gauge_resistance_ohm = -1", "sensor.gauge_resistance_ohm",
-     "gauge_resistance_ohm", "must be greater than 0, got -1"),
+     "gauge_resistance_ohm",
+     "must be at least 10, got -1 (gauges are made from 60 ohm to 10 kohm)"),
     ("strain_range_ue = 3000.0", 'strain_range_ue = "3000"', "sensor.strain_range_ue",
      "strain_range_ue", "expected a number, got a string ('3000')"),
     ("noise_uv_rms = 0.1", "noise_uv_rms = 0.1\nsinc_order = 2.5", "adc.sinc_order",

@@ -481,8 +481,12 @@ def make_design(spec: Spec, constants: UnitConstants | None = None) -> Design:
     full_scale_lsb = spec.sensor.full_scale / spec.output.resolution
     temp = _temperature(spec, full_scale_lsb)
     nominal = _nominal(spec, bridge, converter, g, scale, lin, temp, full_scale_lsb)
-    report = analyse_chain(stages, passband_edge_hz=signal_band(spec),
-                           stopband_edge_hz=_stopband_edge(spec),
+    band, stop = signal_band(spec), _stopband_edge(spec)
+    if not band < stop:
+        raise DesignError(f"{spec.source}: output.bandwidth_hz: the signal band to {band:g} Hz "
+                          f"reaches the filters' stopband from {stop:g} Hz: narrow the band "
+                          "or raise the filter corners")
+    report = analyse_chain(stages, passband_edge_hz=band, stopband_edge_hz=stop,
                            adc_rate_hz=spec.adc.data_rate_sps, sinc_order=spec.adc.sinc_order,
                            full_scale_lsb=full_scale_lsb,
                            sinc_decimation=sinc_decimation(spec.adc))

@@ -39,7 +39,12 @@ BUTTERWORTH_ORDERS = (2, 4, 6)
 LINEARISATION_MODES = ("none", "bridge_inverse", "polynomial")
 OIML_CLASSES = ("I", "II", "III", "IIII")
 
-_NAME_RE = re.compile(r"^[a-z][a-z0-9_]{0,39}$")
+_NAME_RE = re.compile(r"[a-z][a-z0-9_]{0,39}")       # full match: a C identifier prefix
+_UNIT_RE = re.compile(r"[A-Za-z][A-Za-z0-9_/%.]{0,15}")  # full match: a short unit name
+#: Largest PGA gain accepted (converters offer up to 128; our margin).
+MAX_PGA_GAIN = 1024
+#: Lowest filter frequency (cutoff, notch) as a share of its stage's sample rate.
+MIN_RELATIVE_FREQUENCY = 1e-5
 
 
 # --------------------------------------------------------------------------- dataclasses
@@ -247,7 +252,7 @@ class Spec:
 
 def _read_sensor(t: Table) -> Sensor:
     kind = t.req_string("kind", choices=("strain_bridge", "transducer"))
-    zero_balance = t.number("zero_balance_mv_per_v", 0.0, minimum=-100.0, maximum=100.0)
+    zero_balance = t.number("zero_balance_mv_per_v", 0.0)
     assert zero_balance is not None
     if kind == "strain_bridge":
         topology = t.req_string("topology", choices=TOPOLOGIES)
@@ -257,33 +262,26 @@ def _read_sensor(t: Table) -> Sensor:
         del unit
         sensor: Sensor = StrainBridge(
             topology=topology,
-            gauge_factor=t.req_number("gauge_factor", minimum=0.0, exclusive_min=True,
-                                      maximum=10.0),
-            gauge_resistance_ohm=t.req_number("gauge_resistance_ohm", minimum=0.0,
-                                              exclusive_min=True),
-            poisson_ratio=t.number("poisson_ratio", 0.3, minimum=0.0, exclusive_min=True,
-                                   maximum=0.5, exclusive_max=True) or 0.3,
+            gauge_factor=t.req_number("gauge_factor"),
+            gauge_resistance_ohm=t.req_number("gauge_resistance_ohm"),
+            poisson_ratio=t.number("poisson_ratio", 0.3) or 0.3,
             wiring=wiring or wirings[-1],
-            lead_resistance_ohm=t.number("lead_resistance_ohm", 0.0, minimum=0.0) or 0.0,
-            strain_range_ue=t.req_number("strain_range_ue", minimum=0.0, exclusive_min=True,
-                                         maximum=100000.0),
+            lead_resistance_ohm=t.number("lead_resistance_ohm", 0.0) or 0.0,
+            strain_range_ue=t.req_number("strain_range_ue"),
             zero_balance_mv_per_v=zero_balance,
         )
     else:
         sensor = Transducer(
-            capacity=t.req_number("capacity", minimum=0.0, exclusive_min=True),
+            capacity=t.req_number("capacity"),
             unit=t.req_string("unit"),
-            rated_output_mv_per_v=t.req_number("rated_output_mv_per_v", minimum=0.0,
-                                               exclusive_min=True, maximum=1000.0),
+            rated_output_mv_per_v=t.req_number("rated_output_mv_per_v"),
             zero_balance_mv_per_v=zero_balance,
-            cells_in_parallel=t.integer("cells_in_parallel", 1, minimum=1, maximum=64) or 1,
-            cell_resistance_ohm=t.number("cell_resistance_ohm", 350.0, minimum=0.0,
-                                         exclusive_min=True) or 350.0,
+            cells_in_parallel=t.integer("cells_in_parallel", 1) or 1,
+            cell_resistance_ohm=t.number("cell_resistance_ohm", 350.0) or 350.0,
             bipolar=t.boolean("bipolar", False),
-            nonlinearity_pct_fs=t.number("nonlinearity_pct_fs", 0.0, minimum=0.0,
-                                         maximum=100.0) or 0.0,
+            nonlinearity_pct_fs=t.number("nonlinearity_pct_fs", 0.0) or 0.0,
         )
-        if not re.match(r"^[A-Za-z][A-Za-z0-9_/%.]{0,15}$", sensor.unit):
+        if not _UNIT_RE.fullmatch(sensor.unit):
             raise t.fail("unit", f"{sensor.unit!r} is not a short unit name (letters, digits, "
                                  "_ / % .)")
     t.finish()
@@ -291,9 +289,9 @@ def _read_sensor(t: Table) -> Sensor:
 
 
 def _read_excitation(t: Table, adc_table: Table) -> Excitation:
-    voltage = t.req_number("voltage_v", minimum=0.0, exclusive_min=True, maximum=30.0)
+    voltage = t.req_number("voltage_v")
     ratiometric = t.boolean("ratiometric", True)
-    reference_max = adc_table.number("reference_max_v", 5.0, minimum=0.0, exclusive_min=True)
+    reference_max = adc_table.number("reference_max_v", 5.0)
     assert reference_max is not None
     if ratiometric:
         if t.has("reference_v"):
@@ -306,7 +304,7 @@ def _read_excitation(t: Table, adc_table: Table) -> Excitation:
                                       "ratiometric reference must respect")
         reference = voltage
     else:
-        reference = t.req_number("reference_v", minimum=0.0, exclusive_min=True)
+        reference = t.req_number("reference_v")
         if reference > reference_max:
             raise t.fail("reference_v", f"{reference:g} V exceeds adc.reference_max_v = "
                                         f"{reference_max:g} V")
@@ -315,14 +313,15 @@ def _read_excitation(t: Table, adc_table: Table) -> Excitation:
 
 
 def _read_adc(t: Table) -> Adc:
-    bits = t.integer("bits", 24, minimum=16, maximum=24) or 24
+    bits = t.integer("bits", 24) or 24
     gains_raw = t.array("pga_gains")
     if gains_raw is None:
         gains = DEFAULT_PGA_GAINS
     else:
-        if not gains_raw or any(isinstance(g, bool) or not isinstance(g, int) or g < 1
-                                for g in gains_raw):
-            raise t.fail("pga_gains", "expected a non-empty array of positive integers")
+        if not gains_raw or any(isinstance(g, bool) or not isinstance(g, int)
+                                or not 1 <= g <= MAX_PGA_GAIN for g in gains_raw):
+            raise t.fail("pga_gains", "expected a non-empty array of integers from 1 to "
+                                      f"{MAX_PGA_GAIN}")
         gains = tuple(sorted(set(gains_raw)))
     gain_value = t._raw("pga_gain", "auto", False)
     if gain_value == "auto":
@@ -334,7 +333,7 @@ def _read_adc(t: Table) -> Adc:
                                  f"{', '.join(map(str, gains))}")
     else:
         gain = gain_value
-    data_rate = t.req_number("data_rate_sps", minimum=0.0, exclusive_min=True, maximum=1e6)
+    data_rate = t.req_number("data_rate_sps")
     modulator = t.number("modulator_rate_hz", None, minimum=data_rate)
     adc = Adc(
         bits=bits,
@@ -342,23 +341,21 @@ def _read_adc(t: Table) -> Adc:
         pga_gains=gains,
         reference_max_v=t.number("reference_max_v", 5.0) or 5.0,
         data_rate_sps=data_rate,
-        noise_uv_rms=t.req_number("noise_uv_rms", minimum=0.0, exclusive_min=True),
-        sinc_order=t.integer("sinc_order", 3, minimum=1, maximum=5) or 3,
+        noise_uv_rms=t.req_number("noise_uv_rms"),
+        sinc_order=t.integer("sinc_order", 3) or 3,
         modulator_rate_hz=modulator,
-        overload_margin_pct=t.number("overload_margin_pct", 10.0, minimum=0.0,
-                                     maximum=100.0) or 0.0,
+        overload_margin_pct=t.number("overload_margin_pct", 10.0) or 0.0,
     )
     t.finish()
     return adc
 
 
 def _read_output(t: Table, sensor: Sensor, data_rate: float) -> Output:
-    resolution = t.req_number("resolution", minimum=0.0, exclusive_min=True)
+    resolution = t.req_number("resolution")
     if resolution > sensor.full_scale:
         raise t.fail("resolution", f"{resolution:g} is coarser than the whole range "
                                    f"({sensor.full_scale:g} {sensor.unit})")
-    bandwidth = t.number("bandwidth_hz", None, minimum=0.0, exclusive_min=True,
-                         maximum=data_rate / 2, exclusive_max=False)
+    bandwidth = t.number("bandwidth_hz", None, maximum=data_rate / 2)
     t.finish()
     return Output(resolution=resolution, bandwidth_hz=bandwidth)
 
@@ -368,35 +365,38 @@ def _read_stage(t: Table, rate: float) -> FilterStage:
     nyquist = rate / 2
 
     def below_nyquist(key: str, **kw: Any) -> float:
-        value = t.req_number(key, minimum=0.0, exclusive_min=True, **kw)
+        value = t.req_number(key, **kw)
+        if value < rate * MIN_RELATIVE_FREQUENCY:
+            raise t.fail(key, f"{value:g} Hz is below {MIN_RELATIVE_FREQUENCY:g} of this "
+                              f"stage's {rate:g} samples/s: its poles would sit closer to "
+                              "z = 1 than the coefficient words resolve")
         if value >= nyquist:
             raise t.fail(key, f"{value:g} Hz is at or above the Nyquist frequency "
                               f"{nyquist:g} Hz of this stage's {rate:g} samples/s")
         return value
 
     if kind == "moving_average":
-        stage = FilterStage(kind, rate, length=t.req_integer("length", minimum=1, maximum=1024))
+        stage = FilterStage(kind, rate, length=t.req_integer("length"))
     elif kind == "fir_lowpass":
         cutoff = below_nyquist("cutoff_hz")
-        transition = t.req_number("transition_hz", minimum=0.0, exclusive_min=True)
+        transition = t.req_number("transition_hz")
         if cutoff + transition / 2 >= nyquist:
             raise t.fail("transition_hz", f"cutoff {cutoff:g} Hz plus half the transition "
                                           f"{transition:g} Hz reaches Nyquist ({nyquist:g} Hz)")
-        decimation = t.integer("decimation", 1, minimum=1, maximum=256) or 1
+        decimation = t.integer("decimation", 1) or 1
         if cutoff + transition / 2 > rate / (2 * decimation):
             raise t.fail("decimation", f"{decimation} would alias: the stopband edge "
                                        f"{cutoff + transition / 2:g} Hz is above the new "
                                        f"Nyquist {rate / (2 * decimation):g} Hz")
         stage = FilterStage(kind, rate, cutoff_hz=cutoff, transition_hz=transition,
-                            attenuation_db=t.number("attenuation_db", 60.0, minimum=10.0,
-                                                    maximum=150.0),
+                            attenuation_db=t.number("attenuation_db", 60.0),
                             decimation=decimation)
     elif kind == "butterworth_lowpass":
         stage = FilterStage(kind, rate, order=t.req_integer("order", choices=BUTTERWORTH_ORDERS),
                             cutoff_hz=below_nyquist("cutoff_hz"))
     else:
         stage = FilterStage(kind, rate, frequency_hz=below_nyquist("frequency_hz"),
-                            quality=t.number("quality", 5.0, minimum=0.1, maximum=1000.0))
+                            quality=t.number("quality", 5.0))
     t.finish()
     return stage
 
@@ -422,7 +422,7 @@ def _read_linearisation(t: Table | None, sensor: Sensor) -> Linearisation:
     if t is None:
         return Linearisation(mode="none", order=1)
     mode = t.string("mode", "none", choices=LINEARISATION_MODES) or "none"
-    order = t.integer("order", 3, minimum=1, maximum=5) or 3
+    order = t.integer("order", 3) or 3
     if mode == "bridge_inverse" and sensor.kind != "strain_bridge":
         raise t.fail("mode", "bridge_inverse needs a strain_bridge sensor; use \"polynomial\" "
                              "for a transducer's measured nonlinearity")
@@ -435,18 +435,16 @@ def _read_linearisation(t: Table | None, sensor: Sensor) -> Linearisation:
 def _read_temperature(t: Table | None) -> Temperature | None:
     if t is None:
         return None
-    low = t.req_number("min_c", minimum=-273.15)
-    high = t.req_number("max_c", minimum=low, exclusive_min=True, maximum=1000.0)
+    low = t.req_number("min_c")
+    high = t.req_number("max_c", minimum=low, exclusive_min=True)
     reference = t.number("reference_c", 20.0, minimum=low, maximum=high)
     assert reference is not None
     temperature = Temperature(
         reference_c=reference, min_c=low, max_c=high,
-        zero_tc_ppm_fs_per_c=t.number("zero_tc_ppm_fs_per_c", 0.0, minimum=-10000.0,
-                                      maximum=10000.0) or 0.0,
-        span_tc_ppm_per_c=t.number("span_tc_ppm_per_c", 0.0, minimum=-10000.0,
-                                   maximum=10000.0) or 0.0,
-        max_zero_tc_ppm_fs_per_c=t.number("max_zero_tc_ppm_fs_per_c", None, minimum=0.0),
-        max_span_tc_ppm_per_c=t.number("max_span_tc_ppm_per_c", None, minimum=0.0),
+        zero_tc_ppm_fs_per_c=t.number("zero_tc_ppm_fs_per_c", 0.0) or 0.0,
+        span_tc_ppm_per_c=t.number("span_tc_ppm_per_c", 0.0) or 0.0,
+        max_zero_tc_ppm_fs_per_c=t.number("max_zero_tc_ppm_fs_per_c", None),
+        max_span_tc_ppm_per_c=t.number("max_span_tc_ppm_per_c", None),
     )
     t.finish()
     return temperature
@@ -469,15 +467,14 @@ def _read_calibration(t: Table | None, sensor: Sensor) -> Calibration | None:
                                    f"{sensor.full_scale:g} {sensor.unit}")
     calibration = Calibration(
         points=points,
-        max_error=t.number("max_error", None, minimum=0.0, exclusive_min=True),
-        max_error_pct_span=t.number("max_error_pct_span", None, minimum=0.0, exclusive_min=True),
+        max_error=t.number("max_error", None),
+        max_error_pct_span=t.number("max_error_pct_span", None),
         oiml_class=t.string("oiml_class", None, choices=OIML_CLASSES),
-        max_zero_offset_mv_per_v=t.number("max_zero_offset_mv_per_v", None, minimum=0.0),
-        span_tolerance_pct=t.number("span_tolerance_pct", 20.0, minimum=0.0,
-                                    exclusive_min=True, maximum=100.0) or 20.0,
-        max_noise_ratio=t.number("max_noise_ratio", 4.0, minimum=1.0) or 4.0,
-        max_hysteresis=t.number("max_hysteresis", None, minimum=0.0),
-        max_repeatability=t.number("max_repeatability", None, minimum=0.0),
+        max_zero_offset_mv_per_v=t.number("max_zero_offset_mv_per_v", None),
+        span_tolerance_pct=t.number("span_tolerance_pct", 20.0) or 20.0,
+        max_noise_ratio=t.number("max_noise_ratio", 4.0) or 4.0,
+        max_hysteresis=t.number("max_hysteresis", None),
+        max_repeatability=t.number("max_repeatability", None),
     )
     t.finish()
     return calibration
@@ -486,8 +483,8 @@ def _read_calibration(t: Table | None, sensor: Sensor) -> Calibration | None:
 def _read_target(t: Table | None) -> Target | None:
     if t is None:
         return None
-    address = t.req_integer("calblock_address", minimum=0, maximum=0xFFFFFFFF)
-    size = t.integer("calblock_size", 128, minimum=64, maximum=4096) or 128
+    address = t.req_integer("calblock_address")
+    size = t.integer("calblock_size", 128) or 128
     if address % 4:
         raise t.fail("calblock_address", f"0x{address:08X} is not 4-byte aligned")
     if address + size > 0x1_0000_0000:
@@ -504,21 +501,23 @@ def parse_spec(text: str, source: str = "<string>") -> Spec:
     ctx = Context(source, text)
     try:
         data = tomllib.loads(text)
+    except RecursionError:
+        raise SpecError("TOML nested too deeply", file=source) from None
     except tomllib.TOMLDecodeError as exc:
         message = str(exc)
         match = re.search(r"\(at line (\d+), column \d+\)", message)
         line = int(match.group(1)) if match else None
         reason = re.sub(r"\s*\(at line \d+, column \d+\)", "", message)
         raise SpecError(f"TOML syntax error: {reason}", file=source, line=line) from None
+    except ValueError as exc:          # tomllib: an integer of more digits than Python reads
+        raise SpecError(f"TOML value not readable: {exc}", file=source) from None
     top = Table(data, "", ctx)
     top.req_integer("schema", choices=(SCHEMA_VERSION,))
     name = top.req_string("name")
-    if not _NAME_RE.match(name):
+    if not _NAME_RE.fullmatch(name):
         raise top.fail("name", f"{name!r} must be lower case letters, digits and _, starting "
                                "with a letter, at most 40 characters (it prefixes C names)")
-    description = top.string("description", "") or ""
-    if any(ord(c) < 32 and c not in "\t" for c in description):
-        raise top.fail("description", "must be a single line without control characters")
+    description = top.string("description", "") or ""     # control characters refused
     sensor_t = top.table("sensor", required=True)
     excitation_t = top.table("excitation", required=True)
     adc_t = top.table("adc", required=True)

@@ -8,11 +8,15 @@ refuse the rest with the nearest valid key as a hint. Every error is a one-line 
 from __future__ import annotations
 
 import difflib
-import math
 import re
 from typing import Any
 
 from hosttool.errors import SpecError
+from hosttool.spec.limits import check_limit
+from hosttool.util.text import SHOWN_CHARS, control_character, shown
+
+#: Largest magnitude of a TOML integer read (int64; anything larger is a typo).
+MAX_INTEGER = (1 << 63) - 1
 
 
 class Table:
@@ -55,9 +59,12 @@ class Table:
             return None
         if isinstance(value, bool) or not isinstance(value, (int, float)):
             raise self.fail(key, f"expected a number, got {describe(value)}")
+        if isinstance(value, int) and abs(value) > MAX_INTEGER:
+            raise self.fail(key, f"{describe(value)} is too large")
         value = float(value)
-        if not math.isfinite(value):
-            raise self.fail(key, f"must be finite, got {value}")
+        problem = check_limit(self._field(key), value)
+        if problem is not None:
+            raise self.fail(key, problem)
         if minimum is not None and (value <= minimum if exclusive_min else value < minimum):
             relation = "greater than" if exclusive_min else "at least"
             raise self.fail(key, f"must be {relation} {minimum:g}, got {value:g}")
@@ -81,8 +88,13 @@ class Table:
             return None
         if isinstance(value, bool) or not isinstance(value, int):
             raise self.fail(key, f"expected an integer, got {describe(value)}")
+        if abs(value) > MAX_INTEGER:
+            raise self.fail(key, f"{describe(value)} is too large")
         if choices is not None and value not in choices:
             raise self.fail(key, f"must be one of {', '.join(map(str, choices))}, got {value}")
+        problem = check_limit(self._field(key), value)
+        if problem is not None:
+            raise self.fail(key, problem)
         if minimum is not None and value < minimum:
             raise self.fail(key, f"must be at least {minimum}, got {value}")
         if maximum is not None and value > maximum:
@@ -103,10 +115,13 @@ class Table:
             return None
         if not isinstance(value, str):
             raise self.fail(key, f"expected a string, got {describe(value)}")
+        bad = control_character(value)
+        if bad is not None:
+            raise self.fail(key, f"control character {bad} in {shown(value)}")
         if choices is not None and value not in choices:
             near = difflib.get_close_matches(value, choices, n=1)
             hint = f" (did you mean {near[0]!r}?)" if near else ""
-            raise self.fail(key, f"{value!r} is not one of {', '.join(choices)}{hint}")
+            raise self.fail(key, f"{shown(value)} is not one of {', '.join(choices)}{hint}")
         return value
 
     def req_string(self, key: str, **kw: Any) -> str:
@@ -146,14 +161,21 @@ class Table:
             if key not in self.used:
                 near = difflib.get_close_matches(key, sorted(self.used), n=1, cutoff=0.5)
                 hint = f" (did you mean {near[0]!r}?)" if near else ""
-                raise self.ctx.error(self._field(key), f"unknown key{hint}")
+                safe = key if key.isprintable() and len(key) <= SHOWN_CHARS else shown(key)
+                raise self.ctx.error(self._field(safe), f"unknown key{hint}")
 
 
 def describe(value: Any) -> str:
     kinds = {bool: "a boolean", str: "a string", int: "an integer", float: "a number",
              list: "an array", dict: "a table"}
+    if isinstance(value, str):
+        shown_value = shown(value)
+    elif isinstance(value, int) and value.bit_length() > 64:
+        shown_value = f"{value.bit_length()} bits"
+    else:
+        shown_value = repr(value)
     return kinds.get(type(value), type(value).__name__) + (
-        f" ({value!r})" if isinstance(value, (str, int, float)) else "")
+        f" ({shown_value})" if isinstance(value, (str, int, float)) else "")
 
 
 class Context:

@@ -32,6 +32,8 @@ TEMPERATURE_STEPS = 5
 #: Every this many codes is evaluated at each temperature step (all codes at the reference).
 TEMPERATURE_CODE_STRIDE = 16
 LONG_RUN_MIN = 1_000_000
+#: The most samples of the long random run (about 2 GB of arrays held at once beyond it).
+MAX_SAMPLES = 100_000_000
 STATIC_BINS = 512
 #: Codes evaluated at once by the static pass (bounded memory, cache-friendly).
 STATIC_CHUNK = 1 << 18
@@ -320,6 +322,12 @@ def verify_design(design: Design, *, samples: int = LONG_RUN_MIN, seed: int = 0,
     if samples < need:
         raise InputError(f"--samples: {samples} is fewer than the {need} samples the step "
                          "and settling tests of this design need")
+    if samples > MAX_SAMPLES:
+        shown = f"{samples}" if samples < 10 ** 30 else f"a {len(str(samples))}-digit number"
+        raise InputError(f"--samples: {shown} is more than the {MAX_SAMPLES} this tool runs "
+                         "(the codes and outputs of each test are held in memory)")
+    if seed < 0:
+        raise InputError(f"--seed: {seed} is negative; give 0 or more")
     engines = engines or {}
     rng = np.random.default_rng(seed)
     static = _static(design, engines if static_engines else {})
