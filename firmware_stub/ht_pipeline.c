@@ -240,3 +240,17 @@ ht_status_t ht_process(ht_pipeline_t *p, int32_t code, int32_t temp_centi, int32
     }
     return status | HT_STATUS_READY;
 }
+
+int32_t ht_settled_output(const ht_pipeline_t *p, int32_t code, int32_t temp_centi)
+{
+    bool clamped = false;
+    int32_t v;
+
+    if (code > HT_D(ADC_CODE_HIGHEST)) {
+        code = HT_D(ADC_CODE_HIGHEST);
+    } else if (code < HT_D(ADC_CODE_LOWEST)) {
+        code = HT_D(ADC_CODE_LOWEST);
+    }
+    v = ht_sat32((int64_t)code * ht_pow2((unsigned)HT_D(GUARD_BITS)) - p->constants.offset);
+    return ht_static_path(&p->constants, v, temp_centi, &clamped);
+}

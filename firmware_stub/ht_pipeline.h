@@ -51,6 +51,7 @@
 #define ht_pipeline_init HT_NAME(pipeline_init)
 #define ht_pipeline_reset HT_NAME(pipeline_reset)
 #define ht_process HT_NAME(process)
+#define ht_settled_output HT_NAME(settled_output)
 #define ht_cal_status_t HT_NAME(cal_status_t)
 #define ht_calblock_load HT_NAME(calblock_load)
 #define ht_cal_status_text HT_NAME(cal_status_text)
@@ -140,5 +141,13 @@ void ht_pipeline_reset(ht_pipeline_t *p);
  */
 HT_MUST_USE ht_status_t ht_process(ht_pipeline_t *p, int32_t code, int32_t temp_centi,
                                    int32_t *out);
+
+/*
+ * The output the pipeline settles to while `code` is held at its input at temperature
+ * temp_centi (0.01 C), with the constants in force: offset, scale, linearisation and
+ * temperature alone, since every filter's integer DC gain is exactly 1. No state changes.
+ * The exhaustive static proof (ht_sweep.c) runs every ADC code through it.
+ */
+int32_t ht_settled_output(const ht_pipeline_t *p, int32_t code, int32_t temp_centi);
 
 #endif /* HT_PIPELINE_H */

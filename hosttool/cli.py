@@ -11,6 +11,7 @@ import functools
 import json
 import os
 import sys
+import time
 import traceback
 from collections.abc import Callable
 from pathlib import Path
@@ -106,10 +107,12 @@ def design(spec: Path, as_json: bool) -> None:
 def verify(spec: Path, calibration: Path | None, samples: int, seed: int, engine: str,
            as_json: bool, report: Path | None) -> None:
     """Prove the integer firmware against its float64 reference (exit 0 pass, 1 fail)."""
+    started = time.perf_counter()
     from hosttool.commands.verify import run_verify
 
     verification, text = run_verify(spec, calibration=calibration, samples=samples, seed=seed,
-                                    engine=engine, as_json=as_json, report=report)
+                                    engine=engine, as_json=as_json, report=report,
+                                    started=started)
     click.echo(text, nl=False)
     sys.exit(0 if verification.passed else 1)
 

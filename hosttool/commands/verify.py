@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import json
 import os
+import time
 from pathlib import Path
 from typing import Any
 
@@ -15,6 +16,7 @@ from hosttool.formats.caljson import load_calibration
 from hosttool.spec.schema import load_spec
 from hosttool.util.tables import Row, sections, table
 from hosttool.verify.proof import Engine, Verification, verify_design
+from hosttool.verify.sweep import SettledEngine
 
 
 def _fmt(value: float | None, digits: int = 4) -> str:
@@ -34,6 +36,7 @@ def verify_json(v: Verification) -> dict[str, Any]:
         "ideal_error_bound_lsb": d.ideal_error_bound_lsb,
         "budget": v.budget_units, "budget_used": v.budget_used,
         "static": {"codes": s.codes, "temperatures_c": list(s.temperatures_c),
+                   "evaluations": s.evaluations,
                    "max_error_lsb": s.max_error_lsb, "mean_abs_error_lsb": s.mean_abs_error_lsb,
                    "bound_lsb": s.bound_lsb, "saturations": s.saturations,
                    "monotonic": s.monotonic, "engines_agree": s.engines_agree,
@@ -94,16 +97,21 @@ def verify_text(v: Verification) -> str:
 
 
 ENGINES = ("python", "c", "both")
+#: Phases of ``timings`` in the JSON, seconds of wall time each.
+TIMING_KEYS = ("import", "design", "static", "dynamic", "report")
 
 
-def _engines(design: Design, engine: str) -> dict[str, Engine]:
+def _engines(design: Design, engine: str
+             ) -> tuple[dict[str, Engine], dict[str, SettledEngine]]:
+    """The compiled engines (dynamic records, settled codes) besides the Python model."""
     if engine not in ENGINES:
         raise InputError(f"--engine: {engine!r} is not one of {', '.join(ENGINES)}")
     if engine == "python":
-        return {}
+        return {}, {}
     from hosttool.firmware.compiled_model import host_engine  # deferred: only with a C engine
 
-    return {"c": host_engine(design)}
+    c = host_engine(design)
+    return {"c": c.record}, {"c": c.settled}
 
 
 def _check_report_path(report: Path) -> None:
@@ -115,19 +123,31 @@ def _check_report_path(report: Path) -> None:
 
 
 def run_verify(spec_path: Path, *, calibration: Path | None, samples: int, seed: int,
-               engine: str, as_json: bool, report: Path | None) -> tuple[Verification, str]:
-    """Verify a spec (or one unit of it); return the verification and the text to print."""
+               engine: str, as_json: bool, report: Path | None,
+               started: float | None = None) -> tuple[Verification, str]:
+    """Verify a spec (or one unit of it); return the verification and the text to print.
+
+    ``started``: the ``time.perf_counter()`` at which the process began importing, for
+    the ``import`` figure of ``timings`` (JSON).
+    """
+    clock = time.perf_counter()
+    timings = {"import": clock - started if started is not None else 0.0}
     if report is not None:
         _check_report_path(report)
     design = make_design(load_spec(spec_path))
     if calibration is not None:
         design = design.with_constants(load_calibration(calibration, design))
-    engines = _engines(design, engine)
-    verification = verify_design(design, samples=samples, seed=seed, engines=engines)
+    engines, static_engines = _engines(design, engine)
+    timings["design"] = time.perf_counter() - clock
+    verification = verify_design(design, samples=samples, seed=seed, engines=engines,
+                                 static_engines=static_engines, timings=timings)
+    clock = time.perf_counter()
     if report is not None:
         from hosttool.verify.report import write_report  # deferred: matplotlib, only for --report
 
         write_report(verification, report)
-    text = (json.dumps(verify_json(verification), indent=2) + "\n" if as_json
-            else verify_text(verification))
+    data = verify_json(verification)
+    timings["report"] = time.perf_counter() - clock
+    data["timings"] = {k: round(timings[k], 4) for k in TIMING_KEYS}
+    text = json.dumps(data, indent=2) + "\n" if as_json else verify_text(verification)
     return verification, text

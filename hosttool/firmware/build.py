@@ -130,8 +130,11 @@ def _copy_tree(src: Traversable, dst: Path) -> None:
 
 
 def build(program: Program, kind: str, build_dir: Path, *,
-          include_dirs: Sequence[Path] = (), defines: Sequence[str] = ()) -> Path:
+          include_dirs: Sequence[Path] = (), defines: Sequence[str] = (),
+          shared: bool = False) -> Path:
     """Build ``program`` for ``kind`` under ``build_dir`` and return the executable's path.
+
+    ``shared`` (host kinds): a shared library ``lib<name>.so`` instead, for ctypes.
 
     ``include_dirs`` (generated headers, for instance) go on the include path after the
     firmware folder; ``defines`` (``NAME=VALUE``) become ``-D`` options. The executable is
@@ -146,6 +149,11 @@ def build(program: Program, kind: str, build_dir: Path, *,
     out = out_dir / (program.name + (".elf" if spec.target else ""))
     sources = [src / s for s in program.sources]
     flags = [*COMMON_FLAGS, *spec.flags]
+    if shared:
+        if spec.target:
+            raise CBuildError(f"{kind}: a shared library is built for the host only")
+        out = out_dir / f"lib{program.name}.so"
+        flags += ["-fPIC", "-shared"]
     includes = [f"-I{src}", *(f"-I{Path(d)}" for d in include_dirs)]
     if spec.target:
         flags += ["-T", str(src / LINKER_SCRIPT)]

@@ -1,25 +1,27 @@
 """Proof of the fixed-point error against the float64 reference, with a verdict.
 
-``verify_design`` runs the static path over every ADC code (and over the temperature range
-in steps), then a set of dynamic tests through the whole chain, on the bit-exact Python
-model and, when given, on other engines (the compiled C firmware) that must agree with it
-bit for bit. A test passes when its largest error against the float64 reference (realised
-constants) is within the design's proven bound and no node saturated.
+``verify_design`` runs the static path over every ADC code at every temperature step
+(sweep.py, one compiled loop; the compiled firmware, when given, on every code too), then
+a set of dynamic tests through the whole chain, on the bit-exact Python model and, when
+given, on other engines (the compiled C firmware) that must agree with it bit for bit. A
+test passes when its largest error against the float64 reference (realised constants) is
+within the design's proven bound and no node saturated.
 """
 
 from __future__ import annotations
 
 import math
+import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy import signal
 
-from hosttool.design.model import run_integer, run_reference, static_integer, static_reference
+from hosttool.design.model import run_integer, run_reference
 from hosttool.design.resolve import Design
 from hosttool.errors import InputError
+from hosttool.verify.sweep import STATIC_BINS, SettledEngine, sweep_static
 
 I64 = NDArray[np.int64]
 #: An engine runs the integer pipeline on (codes, temperatures or None) from reset.
@@ -27,16 +29,12 @@ Engine = Callable[[I64, I64 | None], I64]
 
 #: Amplitude of the mains hum test, as a fraction of the ADC's input range.
 HUM_FRACTION = 0.01
-#: Temperatures of the static path's temperature sweep (besides the reference).
+#: Temperatures of the static path's temperature sweep (besides the reference); every
+#: code is evaluated at each.
 TEMPERATURE_STEPS = 5
-#: Every this many codes is evaluated at each temperature step (all codes at the reference).
-TEMPERATURE_CODE_STRIDE = 16
 LONG_RUN_MIN = 1_000_000
 #: The most samples of the long random run (about 2 GB of arrays held at once beyond it).
 MAX_SAMPLES = 100_000_000
-STATIC_BINS = 512
-#: Codes evaluated at once by the static pass (bounded memory, cache-friendly).
-STATIC_CHUNK = 1 << 18
 
 
 @dataclass(frozen=True)
@@ -62,16 +60,19 @@ class TestResult:
 
 @dataclass(frozen=True)
 class StaticResult:
-    """The static path over every code at the reference and over the temperature range."""
+    """The static path over every code at the reference and at each temperature step."""
 
     codes: int
     temperatures_c: tuple[float, ...]
+    evaluations: int                     # codes x temperatures, each code at each one
     max_error_lsb: float
     mean_abs_error_lsb: float
     bound_lsb: float
     saturations: int
     monotonic: bool
     engines_agree: bool | None
+    mismatches: dict[str, int]           # per compiled engine, codes where it differs
+    first_mismatch: dict[str, tuple[int, int] | None]   # (code, 0.01 C) of the first
     code_bins: NDArray[np.float64]       # bin centres (codes) for the error-against-code plot
     max_error_by_bin: NDArray[np.float64]
     error_histogram: tuple[NDArray[np.float64], NDArray[np.float64]]
@@ -163,7 +164,7 @@ def _stimuli(design: Design, samples: int, rng: np.random.Generator
                 None))
     band = design.budget.signal_band_hz
     t = np.arange(max(samples // 4, n)) / fs
-    sweep = 0.5 * (lo + hi) + 0.45 * span * signal.chirp(t, f0=band / 100, t1=t[-1], f1=band)
+    sweep = 0.5 * (lo + hi) + 0.45 * span * _linear_chirp(t, band / 100, t[-1], band)
     out.append(("sine_sweep", f"sine sweep {band / 100:.3g} .. {band:.3g} Hz at 90 % of span",
                 codes.of(sweep), None))
     noise = codes.of(np.full(max(samples // 4, n), 0.5 * (lo + hi))) + np.rint(
@@ -194,6 +195,16 @@ def _stimuli(design: Design, samples: int, rng: np.random.Generator
         out = [(a, b, c, d if d is not None else np.full(c.size, t_ref, dtype=np.int64))
                for a, b, c, d in out]
     return out
+
+
+def _linear_chirp(t: NDArray[np.float64], f0: float, t1: float, f1: float
+                  ) -> NDArray[np.float64]:
+    """cos of the phase 2 pi (f0 t + beta t^2 / 2), beta = (f1 - f0) / t1: a linear sweep
+    from f0 at t = 0 to f1 at t1 (scipy.signal.chirp's 'linear' method, operation for
+    operation, so the stimulus is the same without importing scipy)."""
+    beta = (f1 - f0) / t1
+    phase = 2 * np.pi * (f0 * t + 0.5 * beta * t * t)
+    return np.asarray(np.cos(phase + 0.0), dtype=np.float64)
 
 
 def _sqnr(reference: NDArray[np.float64], error: NDArray[np.float64]) -> float | None:
@@ -251,72 +262,42 @@ def _dynamic(design: Design, name: str, description: str, codes: I64, temps: I64
         figures=figures, passed=passed, trace=trace)
 
 
-def _static(design: Design, engines: dict[str, Engine]) -> StaticResult:
-    limit = 1 << (design.spec.adc.bits - 1)
-    codes = np.arange(-limit, limit, dtype=np.int64)
+def static_temperatures(design: Design) -> list[int | None]:
+    """Temperatures (0.01 C) of the static sweep: the reference, then TEMPERATURE_STEPS
+    evenly over the compensated range; [None] without temperature compensation."""
     tc = design.temperature
-    sweeps: list[tuple[I64, I64 | None]] = []
-    temps_c: list[float] = []
     if tc is None:
-        sweeps.append((codes, None))
-    else:
-        sweeps.append((codes, np.full(codes.size, tc.reference_centi, dtype=np.int64)))
-        temps_c.append(tc.reference_centi / 100)
-        strided = codes[::TEMPERATURE_CODE_STRIDE]
-        for t in np.linspace(tc.min_centi, tc.max_centi, TEMPERATURE_STEPS):
-            sweeps.append((strided, np.full(strided.size, int(round(t)), dtype=np.int64)))
-            temps_c.append(round(t) / 100)
+        return [None]
+    return [tc.reference_centi, *(int(round(t)) for t in
+                                  np.linspace(tc.min_centi, tc.max_centi, TEMPERATURE_STEPS))]
+
+
+def _static(design: Design, engines: dict[str, SettledEngine]) -> StaticResult:
     bound = design.static_error_bound_lsb
-    max_err, abs_sum, count, saturations = 0.0, 0.0, 0, 0
-    monotonic, agree = True, None
-    sign = 1 if design.constants.scale_mul >= 0 else -1
-    bins = np.linspace(-limit, limit, STATIC_BINS + 1)
-    by_bin = np.zeros(STATIC_BINS)
-    hist_edges = np.linspace(-bound, bound, 41)
-    hist = np.zeros(40)
-    for i, (x_all, t_all) in enumerate(sweeps):
-        previous = None
-        for start in range(0, x_all.size, STATIC_CHUNK):
-            x = x_all[start:start + STATIC_CHUNK]
-            t = None if t_all is None else t_all[start:start + STATIC_CHUNK]
-            run = static_integer(design, x, t)
-            err = run.output - static_reference(design, x, t)
-            abs_err = np.abs(err)
-            max_err = max(max_err, float(abs_err.max()))
-            abs_sum += float(abs_err.sum())
-            count += err.size
-            saturations += sum(run.saturations.values())
-            joined = run.output if previous is None else np.concatenate(([previous], run.output))
-            monotonic &= bool(np.all(np.diff(joined) * sign >= 0))
-            previous = run.output[-1]
-            if i == 0:
-                # chunks start on bin edges and hold whole bins (both are powers of two)
-                per_bin = max(1, (2 * limit) // STATIC_BINS)
-                first = (start * STATIC_BINS) // (2 * limit)
-                maxima = abs_err.reshape(-1, per_bin).max(axis=1)
-                by_bin[first:first + maxima.size] = maxima
-                # uniform bins: index arithmetic instead of np.histogram's sort
-                width = hist_edges[1] - hist_edges[0]
-                idx = np.minimum(((np.clip(err, -bound, bound) + bound) / width).astype(np.int64),
-                                 hist.size - 1)
-                hist += np.bincount(idx, minlength=hist.size)
-            for engine in engines.values():
-                same = np.array_equal(engine(x, t), run.output)
-                agree = same if agree is None else (agree and same)
-    passed = max_err <= bound and saturations == 0 and monotonic and agree is not False
+    sweep = sweep_static(design, static_temperatures(design), bound=bound, engines=engines)
+    agree = None if not engines else not any(sweep.mismatches.values())
+    passed = (sweep.max_error_lsb <= bound and sweep.saturations == 0 and sweep.monotonic
+              and agree is not False)
+    bins = np.linspace(design.code_min, design.code_max + 1, STATIC_BINS + 1)
     return StaticResult(
-        codes=int(codes.size), temperatures_c=tuple(temps_c), max_error_lsb=max_err,
-        mean_abs_error_lsb=abs_sum / count, bound_lsb=bound, saturations=saturations,
-        monotonic=monotonic, engines_agree=agree, code_bins=0.5 * (bins[1:] + bins[:-1]),
-        max_error_by_bin=by_bin, error_histogram=(hist_edges, hist), passed=passed)
+        codes=sweep.codes, temperatures_c=tuple(t / 100 for t in sweep.temperatures_centi),
+        evaluations=sweep.evaluations, max_error_lsb=sweep.max_error_lsb,
+        mean_abs_error_lsb=sweep.mean_abs_error_lsb, bound_lsb=bound,
+        saturations=sweep.saturations, monotonic=sweep.monotonic, engines_agree=agree,
+        mismatches=dict(sweep.mismatches), first_mismatch=dict(sweep.first_mismatch),
+        code_bins=0.5 * (bins[1:] + bins[:-1]), max_error_by_bin=sweep.max_error_by_bin,
+        error_histogram=sweep.error_histogram, passed=passed)
 
 
 def verify_design(design: Design, *, samples: int = LONG_RUN_MIN, seed: int = 0,
                   engines: dict[str, Engine] | None = None,
-                  static_engines: bool = False) -> Verification:
-    """Run every check; ``engines`` (by name) must match the Python model bit for bit.
+                  static_engines: dict[str, SettledEngine] | None = None,
+                  timings: dict[str, float] | None = None) -> Verification:
+    """Run every check; ``engines`` (by name) must match the Python model bit for bit on the
+    dynamic tests, ``static_engines`` on every code of the static sweep.
 
-    ``static_engines``: also run the exhaustive static path through the other engines.
+    ``timings``, when given, receives the seconds spent in the ``static`` and ``dynamic``
+    phases.
     """
     need = minimum_samples(design)
     if samples < need:
@@ -330,9 +311,14 @@ def verify_design(design: Design, *, samples: int = LONG_RUN_MIN, seed: int = 0,
         raise InputError(f"--seed: {seed} is negative; give 0 or more")
     engines = engines or {}
     rng = np.random.default_rng(seed)
-    static = _static(design, engines if static_engines else {})
+    clock = time.perf_counter()
+    static = _static(design, static_engines or {})
+    lap = time.perf_counter()
     tests = tuple(_dynamic(design, name, text, codes, temps, engines)
                   for name, text, codes, temps in _stimuli(design, samples, rng))
+    if timings is not None:
+        timings["static"] = lap - clock
+        timings["dynamic"] = time.perf_counter() - lap
     budget = error_budget(design)
     used = None
     reasons: list[str] = []
