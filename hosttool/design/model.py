@@ -83,9 +83,9 @@ class StaticParams:
     ``ints``: guard bits, offset, scale multiplier and shift, linearisation flag and
     30 - K, temperature flag, reference, clamp range (0.01 C), Kz, Sz, Ks, Ss, lowest and
     highest ADC code (indices ``P_*``); ``lin``: C_0 .. C_n (Q30 integers; one zero
-    without linearisation); ``floats``: 2^G, offset, the scale (realised or ideal), 2^K, alpha and gamma of the
-    temperature step (indices ``F_*``); ``flin``: the reference's polynomial coefficients
-    (realised C_k / 2^30, or ideal).
+    without linearisation); ``floats``: 2^G, offset, the scale (realised or ideal), 2^K,
+    alpha and gamma of the temperature step (indices ``F_*``); ``flin``: the reference's
+    polynomial coefficients (realised C_k / 2^30, or ideal).
     """
 
     ints: tuple[int, ...]
