@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from fractions import Fraction
 from typing import Any
 
 from hosttool.design.filters import BiquadStage, FirStage
@@ -86,6 +87,48 @@ def _const(value: int, frac: int, what: str, source: str, design: float | None =
                  QFormat(word, frac).name, None if design is None else on_grid(design, frac))
 
 
+def fraction_text(value: Fraction) -> str:
+    """An exact fraction as decimal text when it has a finite decimal form, else n/d."""
+    den, twos, fives = value.denominator, 0, 0
+    while den % 2 == 0:
+        den, twos = den // 2, twos + 1
+    while den % 5 == 0:
+        den, fives = den // 5, fives + 1
+    if den != 1:
+        return f"{value.numerator}/{value.denominator}"
+    places = max(twos, fives)
+    return decimal_places_exact(value, places)
+
+
+def decimal_places_exact(value: Fraction, places: int) -> str:
+    """``value`` (a multiple of 10^-places) as fixed-point text."""
+    scaled = value * 10 ** places
+    assert scaled.denominator == 1
+    n = scaled.numerator
+    whole, part = divmod(abs(n), 10 ** places)
+    sign = "-" if n < 0 else ""
+    return f"{sign}{whole}.{part:0{places}d}" if places else f"{sign}{whole}"
+
+
+def output_context(d: Design) -> dict[str, Any]:
+    """The exact meaning of one output integer: LSB, rate and range (design.output)."""
+    src, o = d.spec.source, d.output
+    low, high = math.floor(o.range_min), math.ceil(o.range_max)
+    return {"lsb_num": _int32(o.lsb.numerator, "output LSB numerator", src),
+            "lsb_den": _int32(o.lsb.denominator, "output LSB denominator", src),
+            "lsb": fraction_text(o.lsb),
+            "lsb_fraction": f"{o.lsb.numerator}/{o.lsb.denominator}",
+            "rate_num": _int32(o.rate_sps.numerator, "output rate numerator", src),
+            "rate_den": _int32(o.rate_sps.denominator, "output rate denominator", src),
+            "rate": fraction_text(o.rate_sps),
+            "adc_rate": fraction_text(o.rate_sps * d.decimation),
+            "range_min": _int32(low, "range minimum (LSB)", src),
+            "range_max": _int32(high, "range maximum (LSB)", src),
+            "range_whole": low == o.range_min and high == o.range_max,
+            "range_min_units": fraction_text(o.range_min * o.lsb),
+            "range_max_units": fraction_text(o.range_max * o.lsb)}
+
+
 def _fir(i: int, stage: FirStage, src: str) -> dict[str, Any]:
     f = stage.fmt
     return {"fir": True, "length": len(stage.taps_int),
@@ -138,6 +181,7 @@ def design_context(d: Design) -> dict[str, Any]:
                   "limit": d.scale.multiplier_limit},
         "lin": None, "temp": None,
         "lin_frac": LIN_FRAC,
+        "output": output_context(d),
         "proof": proof_context(d),
         "resolution": d.spec.output.resolution, "unit": d.spec.sensor.unit,
         "warnings": d.warnings,

@@ -20,6 +20,7 @@ from hosttool.design.budget import Budget, compute_budget, signal_band
 from hosttool.design.filters import Stage, design_chain
 from hosttool.design.fixedpoint import INT32_MAX, frac_bits_for, quantise
 from hosttool.design.headroom import CascadeAnalysis, NodeBound, analyse_cascade, node_bounds
+from hosttool.design.output import OutputMeaning, output_meaning
 from hosttool.design.response import ChainReport, analyse_chain
 from hosttool.errors import DesignError
 from hosttool.physics.adc import Converter, sinc_decimation
@@ -199,6 +200,11 @@ class Design:
         """Refuse (DesignError naming ``source``) constants outside this design's formats."""
         check_constants(constants, bits=self.spec.adc.bits, g=self.guard_bits, scale=self.scale,
                         lin=self.linearisation, temp=self.temperature, source=source)
+
+    @property
+    def output(self) -> OutputMeaning:
+        """One output LSB, the output rate and the range in LSB, as exact fractions."""
+        return output_meaning(self.spec, self.decimation)
 
     def with_constants(self, constants: UnitConstants) -> Design:
         """The same design carrying one unit's constants (bounds recomputed for them).

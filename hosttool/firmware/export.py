@@ -4,8 +4,8 @@ The folder gets every file of the package's firmware_stub/ (C sources, the Corte
 files, the Makefile, CMakeLists.txt and its helper scripts) and, with a design, that
 design's headers in ``include/`` and check vectors in ``vectors/``: ``<name>.in`` (the
 runner's input lines) and ``<name>.expected`` (the integer model's outputs and status
-words, one line each, as ht_runner prints them). ``make check-host`` or ``ctest`` then compare the compiled
-firmware with the model, bit for bit, on the user's own compiler.
+words, one line each, as ht_runner prints them). ``make check-host`` or ``ctest`` then
+compare the compiled firmware with the model, bit for bit, on the user's own compiler.
 
 Files are written atomically and only when their bytes change, so a build sees no change
 when nothing changed. ``hosttool-firmware.sha256`` (the format of ``sha256sum``) lists what

@@ -7,7 +7,7 @@
  * longer matches the body hash below, unless forced.
  * spec fatigue_coupon, sha256 15269441c7dbbf5240af85f6bae321748c97d9ee4785454364c4ce68d4b85161
  * defaults: nominal constants of the spec
- * body sha256 d67a8d8cef913ff05b711152dc80f6aa18d3fca1573d835712fae276d1489cd4
+ * body sha256 442e50953a97257cac78f80e1f34ddcd4e1954947c573e132668293f99cb28de
  */
 #ifndef FATIGUE_COUPON_DESIGN_H
 #define FATIGUE_COUPON_DESIGN_H
@@ -30,6 +30,21 @@
 /* Output unit and the spec's description, as C strings. */
 #define FATIGUE_COUPON_UNIT "ue"
 #define FATIGUE_COUPON_DESCRIPTION "Quarter-bridge coupon gauge, three-wire, 0.1 ue steps"
+
+/* ---- Output: what one result means (exact, from the spec's decimals) ------------------ */
+
+/* One output LSB = 0.1 ue, exactly 1/10: result r means r x NUM / DEN ue. */
+#define FATIGUE_COUPON_OUTPUT_LSB_NUM 1
+#define FATIGUE_COUPON_OUTPUT_LSB_DEN 10
+/* Output rate 250 samples/s, exactly NUM / DEN (ADC 1000 samples/s, decimation 4). */
+#define FATIGUE_COUPON_OUTPUT_RATE_NUM 250
+#define FATIGUE_COUPON_OUTPUT_RATE_DEN 1
+/*
+ * Measuring range -5000 .. 5000 ue, in output LSB.
+ * Results can lie beyond it, up to the worst |output| in the proofs at the end.
+ */
+#define FATIGUE_COUPON_RANGE_MIN_LSB (-50000)
+#define FATIGUE_COUPON_RANGE_MAX_LSB 50000
 
 /* ---- ADC ------------------------------------------------------------------------------ */
 

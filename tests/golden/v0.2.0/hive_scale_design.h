@@ -7,7 +7,7 @@
  * longer matches the body hash below, unless forced.
  * spec hive_scale, sha256 af63af9f9a479d259c4132deb379d117c3899eab541910a08258164c5168dfa6
  * defaults: nominal constants of the spec
- * body sha256 8f001789e483c5b3e64d12c4ae1d93a8133c76064374c272842b2c1456c1b7d2
+ * body sha256 25f264411078222b22b0d53ca2303820675d0d69dbb61385f749b4eae12e7e9b
  */
 #ifndef HIVE_SCALE_DESIGN_H
 #define HIVE_SCALE_DESIGN_H
@@ -30,6 +30,21 @@
 /* Output unit and the spec's description, as C strings. */
 #define HIVE_SCALE_UNIT "kg"
 #define HIVE_SCALE_DESCRIPTION "Beehive scale, 4 x 50 kg shear beams, 10 g steps"
+
+/* ---- Output: what one result means (exact, from the spec's decimals) ------------------ */
+
+/* One output LSB = 0.01 kg, exactly 1/100: result r means r x NUM / DEN kg. */
+#define HIVE_SCALE_OUTPUT_LSB_NUM 1
+#define HIVE_SCALE_OUTPUT_LSB_DEN 100
+/* Output rate 10 samples/s, exactly NUM / DEN (ADC 10 samples/s, decimation 1). */
+#define HIVE_SCALE_OUTPUT_RATE_NUM 10
+#define HIVE_SCALE_OUTPUT_RATE_DEN 1
+/*
+ * Measuring range 0 .. 200 kg, in output LSB.
+ * Results can lie beyond it, up to the worst |output| in the proofs at the end.
+ */
+#define HIVE_SCALE_RANGE_MIN_LSB 0
+#define HIVE_SCALE_RANGE_MAX_LSB 20000
 
 /* ---- ADC ------------------------------------------------------------------------------ */
 
