@@ -234,10 +234,17 @@ def inspect(spec: Path, file: Path, as_json: bool) -> None:
 @click.argument("readings", type=click.Path(dir_okay=False, path_type=Path))
 @click.option("--out", "out", required=True, type=click.Path(file_okay=False, path_type=Path),
               help="Folder for the images (created if missing).")
-@click.option("--db", "db", type=click.Path(dir_okay=False, path_type=Path),
-              help="Production record (SQLite; default: OUT/production.sqlite).")
+@click.option("--db", "db", envvar="HOSTTOOL_DB", metavar="PATH|URI",
+              help="Production record: an SQLite file, or postgresql://USER@HOST:PORT/DBNAME "
+              "for a server shared by the stations (default: OUT/production.sqlite; "
+              "environment HOSTTOOL_DB).")
 @click.option("--station", "station", help="Name of this station in the record (default: "
               "the host name).")
+@click.option("--lot", "lot", help="Lot name in the record (default: the readings file's "
+              "name without its extension).")
+@click.option("--operator", "operator", default="", help="Who runs the station (recorded).")
+@click.option("--json", "as_json", is_flag=True,
+              help="Print one JSON object: counts and one object per unit.")
 @click.option("--recalibrate", is_flag=True,
               help="Record new constants for serials already recorded (history kept).")
 @click.option("--cal-time", "cal_time", metavar="ISO8601",
@@ -247,10 +254,11 @@ def inspect(spec: Path, file: Path, as_json: bool) -> None:
               show_default="the machine's cores, at most 8", type=click.IntRange(1, 64),
               help="Worker processes for the calibration arithmetic (small lots use one).")
 @guarded
-def batch(spec: Path, readings: Path, out: Path, db: Path | None, station: str | None,
-          recalibrate: bool, cal_time: str | None, jobs: int) -> None:
+def batch(spec: Path, readings: Path, out: Path, db: str | None, station: str | None,
+          lot: str | None, operator: str, as_json: bool, recalibrate: bool,
+          cal_time: str | None, jobs: int) -> None:
     """Calibrate, image and record a lot (exit 0 all passed, 1 some failed, 2 bad input)."""
-    from hosttool.commands.batch import batch_text
+    from hosttool.commands.batch import batch_json, batch_text
     from hosttool.commands.calibrate import cal_time_option
     from hosttool.production.batch import run_batch
 
@@ -260,8 +268,12 @@ def batch(spec: Path, readings: Path, out: Path, db: Path | None, station: str |
 
     summary = run_batch(spec, readings, out=out, db=db, station=station,
                         recalibrate=recalibrate, cal_time=cal_time_option(cal_time),
-                        jobs=jobs, progress=progress)
-    click.echo(batch_text(summary, readings=readings.name, out=out), nl=False)
+                        jobs=jobs, lot=lot, operator=operator,
+                        progress=None if as_json else progress)
+    if as_json:
+        _emit_json(batch_json(summary, readings=readings.name, out=out))
+    else:
+        click.echo(batch_text(summary, readings=readings.name, out=out), nl=False)
     sys.exit(summary.exit_code)
 
 

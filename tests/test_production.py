@@ -137,7 +137,8 @@ def test_other_constants_need_recalibrate_and_keep_history(tmp_path: Path) -> No
     remeasured = _lot(tmp_path / "b.csv", _truths(3), seed=2)
     refused = _batch(remeasured, out)
     assert refused.returncode == 2
-    assert "already recorded (revision 1" in refused.stdout and "--recalibrate" in refused.stdout
+    assert "already recorded as passed (revision 1" in refused.stdout
+    assert "--recalibrate" in refused.stdout
     assert len(_rows(out)) == 3
     done = _batch(remeasured, out, "--recalibrate")
     assert done.returncode == 0, done.stdout

@@ -25,3 +25,17 @@ def batch_text(summary: BatchSummary, *, readings: str, out: Path) -> str:
             lines.append(f"  {o.serial}: {o.status.upper()}: {o.reason}")
     lines += [""] + [f"caution: {text}" for text in SAFETY]
     return "\n".join(lines) + "\n"
+
+
+def batch_json(summary: BatchSummary, *, readings: str, out: Path) -> dict[str, object]:
+    """The object ``batch --json`` prints (docs/json.md)."""
+    counts = {s: sum(o.status == s for o in summary.outcomes) for s in ("pass", "fail",
+                                                                          "refused")}
+    return {"spec": summary.spec_name, "readings": readings, "lot": summary.lot,
+            "out": str(out), "record": summary.record,
+            "counts": {"units": len(summary.outcomes), "passed": counts["pass"],
+                       "failed": counts["fail"], "refused": counts["refused"],
+                       "recorded_now": sum(o.new for o in summary.outcomes)},
+            "exit_code": summary.exit_code,
+            "units": [o.json() for o in summary.outcomes],
+            "cautions": list(SAFETY)}

@@ -2,25 +2,28 @@
 
 Per unit: calibrate (calibration.py) and, if it passed, encode the block and its Intel HEX
 image in memory (in worker processes with ``jobs`` > 1). Units are then recorded in groups
-of ``GROUP`` while holding the output folder's lock: each unit is decided from the record,
-the group's images are written (temporary files, one flush, renames, folder fsync), then
-each unit's row is inserted in its own transaction.
+of ``GROUP``, each group in one transaction of the record (SQLite or PostgreSQL, record.py)
+holding the group's serials and the output folder's lock: each unit is decided from the
+record, the group's images are written (temporary files, one flush, renames, folder fsync),
+then the group's rows are inserted and committed together.
 
 - Idempotent: a serial already recorded with the same spec, constants and calibration time
   is left alone: no new row, its image is not rewritten (only put back if it went missing).
-- A serial recorded with other constants is refused unless ``recalibrate``: then a new
-  revision is recorded and the old row kept (history). Images are named
-  ``<serial>.r<revision>.hex`` and never overwritten once recorded.
-- Killed at any moment: an image is complete on disk before the row naming it commits, so
-  no partial image and no row naming a missing one can exist; a kill between the two
-  leaves an unrecorded image, which the re-run adopts (same bytes) or replaces. A power cut
-  can at most roll back the rows of the group in progress (record.py), whose images are
-  on disk: the re-run adopts them too.
+- A serial whose current row passed, recorded with other constants, is refused unless
+  ``recalibrate``: then a new revision is recorded and the old row kept (history). A serial
+  whose current row failed (a reworked unit measured again) gets a new revision without it.
+  Images are named ``<serial>.r<revision>.hex`` and never overwritten once recorded.
+- Killed at any moment: an image is complete on disk before the rows naming it commit, so
+  no partial image and no row naming a missing one can exist; a kill before the commit
+  rolls the group back and leaves unrecorded images, which the re-run adopts (same bytes)
+  or replaces. A power cut can at most roll back the group in progress (SQLite between
+  checkpoints), whose images are on disk: the re-run adopts them too.
   Temporary files of a killed run are removed when the next batch starts: every image write
   happens under the folder lock, so none can be in progress then.
-- Stations: batches into the same folder take its lock in turn, one group at a time, and
-  each row is a transaction of its own on the shared record, so two stations interleave
-  and lose nothing. One record per output folder.
+- Stations: each group holds its serials in the record (record.py ``lock``), so stations
+  recording into one record, each into its own folder (PostgreSQL) or one shared folder,
+  neither lose nor duplicate a unit; the folder lock only keeps the image writes of
+  batches sharing a folder apart.
 """
 
 from __future__ import annotations
@@ -38,6 +41,7 @@ from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
 
+from hosttool import __version__
 from hosttool.design.resolve import make_design
 from hosttool.errors import HostToolError, OutputError
 from hosttool.formats.calblock import encode
@@ -49,8 +53,8 @@ from hosttool.formats.readings import (
     load_readings,
     unit_cal_time,
 )
-from hosttool.production.fit import CalibrationContext, calibrate_unit
-from hosttool.production.record import Record
+from hosttool.production.fit import CalibrationContext, calibrate_unit, point_limits
+from hosttool.production.record import Record, open_record
 from hosttool.spec.schema import load_spec
 from hosttool.util.atomic import make_folder
 from hosttool.util.atomic_group import write_group
@@ -78,6 +82,9 @@ class Prepared:
     constants: str                # canonical JSON
     figures: str                  # JSON
     image: bytes | None           # Intel HEX bytes when passed
+    criteria: str = "[]"          # JSON: the pass/fail table
+    points: str = "[]"            # JSON: each reading's firmware output, error and limit
+    readings: str = "[]"          # JSON: the unit's readings as read
 
 
 @dataclass(frozen=True)
@@ -86,9 +93,21 @@ class Outcome:
 
     serial: str
     status: str
-    reason: str
+    reasons: tuple[str, ...]
     hex_file: str | None
     new: bool                     # a row was added by this run
+    revision: int | None = None   # the unit's current revision in the record
+
+    @property
+    def reason(self) -> str:
+        """The reasons on one line."""
+        return "; ".join(self.reasons)
+
+    def json(self) -> dict[str, object]:
+        """The unit's object in ``batch --json`` (docs/json.md)."""
+        return {"serial": self.serial, "verdict": self.status, "image": self.hex_file,
+                "revision": self.revision, "reasons": list(self.reasons),
+                "recorded_now": self.new}
 
 
 @dataclass(frozen=True)
@@ -97,6 +116,8 @@ class BatchSummary:
 
     spec_name: str
     outcomes: tuple[Outcome, ...]
+    lot: str = ""
+    record: str = ""              # where the rows went (a URI without its password)
 
     @property
     def exit_code(self) -> int:
@@ -137,12 +158,31 @@ def prepare(ctx: CalibrationContext, unit: UnitReadings | RefusedUnit,
         return refused(unit.serial, f"{unit.where(0)}: serial {unit.serial}: the tool failed "
                        f"on this unit ({exc.__class__.__name__}: {exc}); please report it "
                        "with the readings")
+    limits = point_limits(ctx, unit.reference)
+    criteria = [{"key": c.key, "label": c.label, "value": c.value, "limit": c.limit,
+                 "unit": c.unit, "source": c.source, "pass": c.passed} for c in result.criteria]
+    points = [{"line": p.line, "reference": p.reference, "temperature_c": p.temperature_c,
+               "direction": "up" if p.up else "down", "output": p.output, "error": p.error,
+               "limit": None if limits[i] == float("inf") else float(limits[i])}
+              for i, p in enumerate(result.points)]
     return Prepared(
         serial=unit.serial, refused="", verdict=result.verdict, reasons=result.reasons,
         cal_time_utc=format_time_utc(cal_time),
         constants=json.dumps(constants_json(result.constants), sort_keys=True,
                              separators=(",", ":")),
-        figures=json.dumps(result.figures, sort_keys=True), image=image)
+        figures=json.dumps(result.figures, sort_keys=True), image=image,
+        criteria=json.dumps(criteria), points=json.dumps(points),
+        readings=json.dumps(readings_json(unit)))
+
+
+def readings_json(unit: UnitReadings) -> list[dict[str, object]]:
+    """The unit's readings as read (the record keeps them), in file order."""
+    return [{"line": int(unit.lines[i]), "reference": float(unit.reference[i]),
+             "temperature_c": float(unit.temperature_c[i]),
+             "raw_mean_counts": float(unit.raw_mean[i]),
+             "raw_std_counts": float(unit.raw_std[i]), "samples": int(unit.samples[i]),
+             "direction": "up" if unit.up[i] else "down"}
+            for i in range(unit.reference.size)]
 
 
 # ----------------------------------------------------------------------------- recording
@@ -160,6 +200,8 @@ class Station:
     folder: Path
     name: str
     recalibrate: bool
+    lot: str
+    operator: str
     spec_name: str
     spec_sha256: str
     readings: ReadingsFile
@@ -202,31 +244,31 @@ def _existing(path: Path) -> bytes | None:
 
 
 def _decide(st: Station, p: Prepared) -> _Plan:
+    """Inside the group's transaction, with the serial held (record ``lock``)."""
     if p.refused:
-        return _Plan(p, Outcome(p.serial, "refused", p.refused, None, False), None, 0, None,
-                     False)
-    reason = "; ".join(p.reasons)
+        return _Plan(p, Outcome(p.serial, "refused", (p.refused,), None, False), None, 0,
+                     None, False)
     row = st.record.current(p.serial)
     if row is not None:
         if (row.spec_sha256, row.constants, row.cal_time_utc) == (
                 st.spec_sha256, p.constants, p.cal_time_utc):
-            done = Outcome(p.serial, p.verdict, reason, row.hex_file, False)
+            done = Outcome(p.serial, p.verdict, p.reasons, row.hex_file, False, row.revision)
             if row.hex_file is None or p.image is None:
                 return _Plan(p, done, row.id, row.revision, None, False)
             existing = _existing(st.folder / row.hex_file)
             if existing is not None and existing != p.image:
                 return _Plan(p, Outcome(
-                    p.serial, "refused", f"{row.hex_file}: differs from the image its record "
+                    p.serial, "refused", (f"{row.hex_file}: differs from the image its record "
                     f"names (sha256 {_sha256(existing)[:16]}... instead of "
-                    f"{_sha256(p.image)[:16]}...): changed outside the tool; not overwritten",
-                    row.hex_file, False), row.id, row.revision, None, False)
+                    f"{_sha256(p.image)[:16]}...): changed outside the tool; not overwritten",),
+                    row.hex_file, False, row.revision), row.id, row.revision, None, False)
             return _Plan(p, done, row.id, row.revision, row.hex_file, existing is None)
-        if not st.recalibrate:
+        if row.verdict == "pass" and not st.recalibrate:
             return _Plan(p, Outcome(
-                p.serial, "refused", f"already recorded (revision {row.revision}, station "
-                f"{row.station}, calibrated {row.cal_time_utc}) with other constants; "
-                "--recalibrate records a new revision and keeps the history", row.hex_file,
-                False), row.id, row.revision, None, False)
+                p.serial, "refused", (f"already recorded as passed (revision {row.revision}, "
+                f"station {row.station}, calibrated {row.cal_time_utc}) with other "
+                "constants; --recalibrate records a new revision and keeps the history",),
+                row.hex_file, False, row.revision), row.id, row.revision, None, False)
     revision = st.record.next_revision(p.serial)
     if p.image is None:
         return _Plan(p, None, None if row is None else row.id, revision, None, False)
@@ -245,35 +287,32 @@ def _row(st: Station, p: Prepared, revision: int, hex_file: str | None) -> dict[
         "readings_sha256": st.readings.sha256, "constants": p.constants,
         "figures": p.figures, "verdict": p.verdict, "reasons": json.dumps(list(p.reasons)),
         "hex_file": hex_file, "hex_sha256": None if p.image is None else _sha256(p.image),
+        "lot": st.lot, "operator": st.operator, "tool_version": __version__,
+        "readings": p.readings, "standards": "[]", "criteria": p.criteria,
+        "points": p.points,
     }
 
 
 def _record(st: Station, plan: _Plan) -> Outcome:
-    """Insert the unit's row in its own transaction, unless the record moved meanwhile."""
+    """Insert the unit's row (inside the group's transaction) unless already settled."""
     if plan.outcome is not None:
         return plan.outcome
     p = plan.prepared
-    with st.record.unit():
-        row = st.record.current(p.serial)
-        if (None if row is None else row.id) != plan.current_id \
-                or st.record.next_revision(p.serial) != plan.revision:
-            return Outcome(p.serial, "refused", "recorded meanwhile by another station "
-                           "writing into the same record from another folder; run again",
-                           None, False)
-        st.record.add(_row(st, p, plan.revision, plan.hex_file), plan.current_id)
-    return Outcome(p.serial, p.verdict, "; ".join(p.reasons), plan.hex_file, True)
+    st.record.add(_row(st, p, plan.revision, plan.hex_file), plan.current_id)
+    return Outcome(p.serial, p.verdict, p.reasons, plan.hex_file, True, plan.revision)
 
 
 def commit_group(st: Station, group: list[Prepared]) -> list[Outcome]:
-    """Record a group of units: decide each from the record, write the group's images
-    (durably, in one flush), then insert each unit's row in its own transaction."""
-    with st.folder_lock():
+    """Record a group of units in one transaction holding their serials: decide each from
+    the record, write the group's images (durably, in one flush), insert the rows, commit."""
+    with st.folder_lock(), st.record.group():
+        st.record.lock([p.serial for p in group if not p.refused])
         plans = [_decide(st, p) for p in group]
         write_group(st.folder, {plan.hex_file: plan.prepared.image for plan in plans
                                 if plan.write and plan.hex_file and plan.prepared.image})
         outcomes = [_record(st, plan) for plan in plans]
-        st.record.checkpoint()
-        return outcomes
+    st.record.checkpoint()
+    return outcomes
 
 
 def clear_temporaries(st: Station) -> int:
@@ -327,8 +366,9 @@ def _preparer(ctx: CalibrationContext, override: int | None, jobs: int, count: i
         yield lambda units: pool.imap(_work, units, chunksize=CHUNK)
 
 
-def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: Path | None,
+def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: str | Path | None,
               station: str | None, recalibrate: bool, cal_time: int | None, jobs: int = 1,
+              lot: str | None = None, operator: str = "",
               progress: Callable[[Iterable[Prepared], int], Iterable[Prepared]] | None = None
               ) -> BatchSummary:
     """Calibrate, image and record every unit of a readings file."""
@@ -341,9 +381,10 @@ def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: Path | Non
         readings.units[s] if s in readings.units else (s, readings.refused[s])
         for s in readings.order]
     with _preparer(ctx, cal_time, jobs, len(units)) as prepared:
-        record = Record(db if db is not None else out / "production.sqlite")
+        record = open_record(db if db is not None else out / "production.sqlite")
         st = Station(record=record, folder=out, name=station or socket.gethostname(),
-                     recalibrate=recalibrate, spec_name=design.spec.name,
+                     recalibrate=recalibrate, lot=lot or readings_path.stem,
+                     operator=operator, spec_name=design.spec.name,
                      spec_sha256=design.spec.sha256, readings=readings,
                      readings_name=readings_path.name)
         try:
@@ -355,4 +396,4 @@ def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: Path | Non
                              for o in commit_group(st, group))
         finally:
             record.close()
-    return BatchSummary(design.spec.name, outcomes)
+    return BatchSummary(design.spec.name, outcomes, st.lot, record.where)

@@ -554,6 +554,24 @@ def _criteria(ctx: CalibrationContext, u: UnitReadings, figures: dict[str, float
                  for key, label, value, limit, unit_, source in rows)
 
 
+def point_limits(ctx: CalibrationContext, reference: F64) -> F64:
+    """The error each reading may have, output units (inf where the spec sets no limit): the
+    smallest of calibration.max_error, max_error_pct_span of the span and, with an OIML
+    class, the class's maximum permissible error at that load (the rules of ``_criteria``,
+    per reading, for tables and certificates)."""
+    cal = ctx.design.spec.calibration
+    assert cal is not None
+    limit = np.full(reference.shape, math.inf)
+    if cal.max_error is not None:
+        limit = np.minimum(limit, cal.max_error)
+    if cal.max_error_pct_span is not None:
+        limit = np.minimum(limit, cal.max_error_pct_span / 100 * ctx.span_range)
+    if cal.oiml_class is not None:
+        mpe = np.array([mpe_intervals(cal.oiml_class, r / ctx.resolution) for r in reference])
+        limit = np.minimum(limit, mpe * ctx.resolution)
+    return limit
+
+
 def calibrate_unit(ctx: CalibrationContext, u: UnitReadings, *,
                    cal_time_utc: int) -> UnitCalibration:
     """Fit, encode, judge one unit (``InputError`` if its readings are refused)."""

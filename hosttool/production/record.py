@@ -1,61 +1,75 @@
-"""The production record: an SQLite database (standard-library sqlite3) of every calibration.
+"""The production record: one interface over two back ends.
 
-WAL journal, a busy timeout so stations writing at once wait for each other instead of
-failing, and one transaction per unit (``BEGIN IMMEDIATE``: the write lock is taken before
-the unit's record is read, so two stations cannot both record the same serial). Each
-commit is atomic and survives the process being killed; against a power cut the record is
-made durable by ``checkpoint()`` (synchronous NORMAL: commits between two checkpoints may
-be rolled back by a power cut, never half-applied; the batch checkpoints after every group
-of units, whose images are already on disk, so a re-run restores such rows). Rows are
-never deleted; a recalibration inserts a new revision and clears ``current`` on the old
-one, so the history stays.
+``open_record(where)`` opens an SQLite file (the embedded default: one station, one folder;
+record_sqlite.py) or, for a ``postgresql://`` URI, a PostgreSQL server shared by the
+stations of a line (record_postgres.py). Both hold the same versioned schema and give the
+same guarantees:
 
-Schema version 1:
+- one transaction per group of units (``group()``), rolled back whole if the process dies;
+- ``lock(serials)`` inside it: no other station can record those serials until the commit
+  (SQLite: the database write lock taken at BEGIN IMMEDIATE; PostgreSQL: a transaction
+  advisory lock per serial, taken in sorted order);
+- at most one current row per serial (a unique partial index), revisions 1, 2, ... per
+  serial (unique), rows never deleted: a recalibration inserts a new revision and clears
+  ``current`` on the old one;
+- the schema is created, or migrated from an older version, on first use.
 
-    record_info(key TEXT PRIMARY KEY, value TEXT)        -- ('schema', '1')
-    calibrations(
-        id INTEGER PRIMARY KEY,
-        serial TEXT, revision INTEGER (1, 2, ... per serial), current INTEGER (0/1),
-        station TEXT, recorded_utc TEXT (wall clock of the insert, ISO 8601),
-        cal_time_utc TEXT (calibration time, from the readings, ISO 8601),
-        spec_name TEXT, spec_sha256 TEXT, readings_file TEXT, readings_sha256 TEXT,
-        constants TEXT (JSON object of integers), figures TEXT (JSON object),
-        verdict TEXT ('pass'/'fail'), reasons TEXT (JSON array),
-        hex_file TEXT (name in the output folder, NULL when failed), hex_sha256 TEXT,
-        UNIQUE (serial, revision))
-    one current row per serial (a partial unique index enforces it)
+Schema version 2 (one table, ``calibrations``; ``record_info`` holds ('schema', '2')):
+
+    id, serial, revision, current (0/1), lot, station, operator, tool_version,
+    recorded_utc (wall clock of the insert), cal_time_utc (from the readings), spec_name,
+    spec_sha256, readings_file, readings_sha256, readings (JSON: the unit's readings),
+    standards (JSON: the reference standards used, as registered), constants (JSON of
+    integers), figures (JSON), criteria (JSON), points (JSON: each reading's firmware output,
+    error and limit), verdict ('pass'/'fail'), reasons (JSON), hex_file, hex_sha256.
+
+Version 1 (no lot, operator, tool version, readings, standards, criteria, points) is
+migrated by adding those columns, empty for the old rows.
 """
 
 from __future__ import annotations
 
-import sqlite3
-from collections.abc import Iterator
-from contextlib import contextmanager
+import re
+from collections.abc import Iterator, Sequence
+from contextlib import AbstractContextManager
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, Protocol
 
-from hosttool.errors import OutputError
+SCHEMA_VERSION = 2
 
-SCHEMA_VERSION = 1
-BUSY_TIMEOUT_S = 120.0
+#: Every column a caller writes, in table order (``id`` is the back end's).
+COLUMNS = ("serial", "revision", "current", "lot", "station", "operator", "tool_version",
+           "recorded_utc", "cal_time_utc", "spec_name", "spec_sha256", "readings_file",
+           "readings_sha256", "readings", "standards", "constants", "figures", "criteria",
+           "points", "verdict", "reasons", "hex_file", "hex_sha256")
+#: Columns holding JSON text.
+JSON_COLUMNS = ("readings", "standards", "constants", "figures", "criteria", "points",
+                "reasons")
 
-_SCHEMA = """
-CREATE TABLE IF NOT EXISTS record_info (key TEXT PRIMARY KEY, value TEXT NOT NULL);
+#: The table, written once for both back ends: ``{id}`` is the back end's key column.
+TABLE = """
 CREATE TABLE IF NOT EXISTS calibrations (
-    id              INTEGER PRIMARY KEY,
+    id              {id},
     serial          TEXT    NOT NULL,
     revision        INTEGER NOT NULL CHECK (revision >= 1),
     current         INTEGER NOT NULL CHECK (current IN (0, 1)),
+    lot             TEXT    NOT NULL DEFAULT '',
     station         TEXT    NOT NULL,
+    operator        TEXT    NOT NULL DEFAULT '',
+    tool_version    TEXT    NOT NULL DEFAULT '',
     recorded_utc    TEXT    NOT NULL,
     cal_time_utc    TEXT    NOT NULL,
     spec_name       TEXT    NOT NULL,
     spec_sha256     TEXT    NOT NULL,
     readings_file   TEXT    NOT NULL,
     readings_sha256 TEXT    NOT NULL,
+    readings        TEXT    NOT NULL DEFAULT '[]',
+    standards       TEXT    NOT NULL DEFAULT '[]',
     constants       TEXT    NOT NULL,
     figures         TEXT    NOT NULL,
+    criteria        TEXT    NOT NULL DEFAULT '[]',
+    points          TEXT    NOT NULL DEFAULT '[]',
     verdict         TEXT    NOT NULL CHECK (verdict IN ('pass', 'fail')),
     reasons         TEXT    NOT NULL,
     hex_file        TEXT,
@@ -65,16 +79,22 @@ CREATE TABLE IF NOT EXISTS calibrations (
 );
 CREATE UNIQUE INDEX IF NOT EXISTS calibrations_current ON calibrations (serial)
     WHERE current = 1;
+CREATE INDEX IF NOT EXISTS calibrations_lot ON calibrations (lot);
 """
 
-COLUMNS = ("serial", "revision", "current", "station", "recorded_utc", "cal_time_utc",
-           "spec_name", "spec_sha256", "readings_file", "readings_sha256", "constants",
-           "figures", "verdict", "reasons", "hex_file", "hex_sha256")
+#: Statements that bring a record of version N to N + 1.
+MIGRATIONS: dict[int, tuple[str, ...]] = {
+    1: tuple(f"ALTER TABLE calibrations ADD COLUMN {name} TEXT NOT NULL DEFAULT '{empty}'"
+             for name, empty in (("lot", ""), ("operator", ""), ("tool_version", ""),
+                                 ("readings", "[]"), ("standards", "[]"), ("criteria", "[]"),
+                                 ("points", "[]")))
+    + ("CREATE INDEX IF NOT EXISTS calibrations_lot ON calibrations (lot)",),
+}
 
 
 @dataclass(frozen=True)
 class Row:
-    """One calibration as recorded."""
+    """What the batch needs of a serial's current calibration."""
 
     id: int
     serial: str
@@ -88,79 +108,104 @@ class Row:
     hex_sha256: str | None
 
 
-class Record:
-    """An open production record; use ``unit()`` for each unit's transaction."""
+ROW_QUERY = ("SELECT id, serial, revision, station, cal_time_utc, spec_sha256, constants, "
+             "verdict, hex_file, hex_sha256 FROM calibrations WHERE serial = ? AND current = 1")
 
-    def __init__(self, path: Path):
-        self.path = path
-        try:
-            self.db = sqlite3.connect(path, timeout=BUSY_TIMEOUT_S, isolation_level=None)
-            mode = self.db.execute("PRAGMA journal_mode=WAL").fetchone()[0]
-            if mode != "wal":
-                raise OutputError(f"{path}: cannot use a write-ahead log here ({mode})")
-            self.db.execute("PRAGMA synchronous=NORMAL")
-            with self.unit():
-                for statement in _SCHEMA.split(";"):
-                    if statement.strip():
-                        self.db.execute(statement)
-                found = self.db.execute(
-                    "SELECT value FROM record_info WHERE key = 'schema'").fetchone()
-                if found is None:
-                    self.db.execute("INSERT INTO record_info VALUES ('schema', ?)",
-                                    (str(SCHEMA_VERSION),))
-                elif found[0] != str(SCHEMA_VERSION):
-                    raise OutputError(f"{path}: record schema {found[0]}, this tool writes "
-                                      f"{SCHEMA_VERSION}")
-        except sqlite3.Error as exc:
-            raise OutputError(f"{path}: cannot open the production record: {exc}") from None
+
+@dataclass(frozen=True)
+class Filter:
+    """Which rows ``select`` returns; None matches anything. Times are ISO 8601 UTC text
+    compared with the recorded wall-clock time (``recorded_utc``), ``since`` inclusive,
+    ``until`` exclusive."""
+
+    lot: str | None = None
+    serial: str | None = None
+    verdict: str | None = None
+    station: str | None = None
+    since: str | None = None
+    until: str | None = None
+    current_only: bool = True
+
+    def where(self) -> tuple[str, list[str]]:
+        """The WHERE clause (``?`` placeholders) and its parameters."""
+        terms: list[str] = []
+        values: list[str] = []
+        for column, value in (("lot", self.lot), ("serial", self.serial),
+                              ("verdict", self.verdict), ("station", self.station)):
+            if value is not None:
+                terms.append(f"{column} = ?")
+                values.append(value)
+        if self.since is not None:
+            terms.append("recorded_utc >= ?")
+            values.append(self.since)
+        if self.until is not None:
+            terms.append("recorded_utc < ?")
+            values.append(self.until)
+        if self.current_only:
+            terms.append("current = 1")
+        return (" WHERE " + " AND ".join(terms)) if terms else "", values
+
+
+SELECT_ALL = ("SELECT id, " + ", ".join(COLUMNS) + " FROM calibrations{where} "
+              "ORDER BY serial, revision")
+
+
+class Record(Protocol):
+    """An open production record (either back end)."""
+
+    where: str
 
     def close(self) -> None:
         """Close the connection."""
-        self.db.close()
 
-    @contextmanager
-    def unit(self) -> Iterator[None]:
-        """One transaction holding the write lock; rolled back if the body raises."""
-        try:
-            self.db.execute("BEGIN IMMEDIATE")
-        except sqlite3.Error as exc:
-            raise OutputError(f"{self.path}: cannot lock the production record: {exc}") \
-                from None
-        try:
-            yield
-        except BaseException:
-            self.db.execute("ROLLBACK")
-            raise
-        try:
-            self.db.execute("COMMIT")
-        except sqlite3.Error as exc:
-            raise OutputError(f"{self.path}: cannot commit: {exc}") from None
+    def group(self) -> AbstractContextManager[None]:
+        """One transaction for a group of units; rolled back if the body raises."""
+
+    def lock(self, serials: Sequence[str]) -> None:
+        """Inside ``group()``: hold these serials against other stations until the commit."""
 
     def checkpoint(self) -> None:
-        """Make every commit so far durable (WAL and database fsynced)."""
-        try:
-            self.db.execute("PRAGMA wal_checkpoint(PASSIVE)")
-        except sqlite3.Error as exc:
-            raise OutputError(f"{self.path}: cannot checkpoint: {exc}") from None
+        """Make every commit so far durable."""
 
     def current(self, serial: str) -> Row | None:
-        """The serial's current calibration, if any (call inside ``unit()``)."""
-        found = self.db.execute(
-            "SELECT id, serial, revision, station, cal_time_utc, spec_sha256, constants, "
-            "verdict, hex_file, hex_sha256 FROM calibrations WHERE serial = ? AND current = 1",
-            (serial,)).fetchone()
-        return None if found is None else Row(*found)
+        """The serial's current calibration, if any."""
 
     def next_revision(self, serial: str) -> int:
         """1 + the serial's highest revision so far."""
-        found = self.db.execute("SELECT MAX(revision) FROM calibrations WHERE serial = ?",
-                                (serial,)).fetchone()[0]
-        return 1 if found is None else int(found) + 1
 
     def add(self, values: dict[str, Any], supersedes: int | None) -> None:
-        """Insert a current row (clearing ``current`` on the row it supersedes)."""
-        if supersedes is not None:
-            self.db.execute("UPDATE calibrations SET current = 0 WHERE id = ?", (supersedes,))
-        self.db.execute(f"INSERT INTO calibrations ({', '.join(COLUMNS)}) VALUES "
-                        f"({', '.join('?' * len(COLUMNS))})",
-                        tuple(values[c] for c in COLUMNS))
+        """Insert a current row, clearing ``current`` on the row it supersedes."""
+
+    def select(self, which: Filter) -> list[dict[str, Any]]:
+        """Rows as dicts (every column, ``id`` first), by serial and revision."""
+
+
+_URI = re.compile(r"^postgres(ql)?://", re.IGNORECASE)
+
+
+def is_server(where: str | Path) -> bool:
+    """True when ``where`` names a PostgreSQL server (a libpq URI) rather than a file."""
+    return bool(_URI.match(str(where)))
+
+
+def open_record(where: str | Path) -> Record:
+    """Open (creating or migrating its schema) the record at a path or a postgresql:// URI."""
+    # imported here on purpose: the back ends import this module (its schema), and psycopg
+    # is loaded only by a station that records into a server
+    if is_server(where):
+        from hosttool.production.record_postgres import PostgresRecord
+        return PostgresRecord(str(where))
+    from hosttool.production.record_sqlite import SqliteRecord
+    return SqliteRecord(Path(where))
+
+
+def shown(where: str | Path) -> str:
+    """``where`` for messages: a URI without its password."""
+    return re.sub(r"(://[^:/@]+):[^@]*@", r"\1:***@", str(where))
+
+
+def iter_statements(script: str) -> Iterator[str]:
+    """The statements of a script of ';'-separated DDL (no ';' inside any statement)."""
+    for statement in script.split(";"):
+        if statement.strip():
+            yield statement.strip()

@@ -1,0 +1,64 @@
+"""The record's interface on the embedded back end: schema migration, rework, queries.
+
+Sources: sqlite3 (standard library) reading the file directly; the version 1 schema as
+hosttool 0.2.0 wrote it (copied below).
+"""
+
+from __future__ import annotations
+
+import json
+import sqlite3
+from pathlib import Path
+
+from test_production import _batch, _lot, _rows, _truths
+
+from hosttool.production.record import SCHEMA_VERSION, Filter, open_record
+
+V1 = """
+CREATE TABLE record_info (key TEXT PRIMARY KEY, value TEXT NOT NULL);
+CREATE TABLE calibrations (
+    id INTEGER PRIMARY KEY, serial TEXT NOT NULL, revision INTEGER NOT NULL,
+    current INTEGER NOT NULL, station TEXT NOT NULL, recorded_utc TEXT NOT NULL,
+    cal_time_utc TEXT NOT NULL, spec_name TEXT NOT NULL, spec_sha256 TEXT NOT NULL,
+    readings_file TEXT NOT NULL, readings_sha256 TEXT NOT NULL, constants TEXT NOT NULL,
+    figures TEXT NOT NULL, verdict TEXT NOT NULL, reasons TEXT NOT NULL, hex_file TEXT,
+    hex_sha256 TEXT, UNIQUE (serial, revision));
+CREATE UNIQUE INDEX calibrations_current ON calibrations (serial) WHERE current = 1;
+INSERT INTO record_info VALUES ('schema', '1');
+INSERT INTO calibrations VALUES (1, 'OLD1', 1, 1, 'bench', '2025-01-01T00:00:00.000000Z',
+    '2025-01-01T00:00:00Z', 'x', 'ab', 'r.csv', 'cd', '{}', '{}', 'fail', '["too noisy"]',
+    NULL, NULL);
+"""
+
+
+def test_version_1_record_is_migrated_on_first_use(tmp_path: Path) -> None:
+    path = tmp_path / "old.sqlite"
+    db = sqlite3.connect(path)
+    db.executescript(V1)
+    db.close()
+    record = open_record(path)
+    rows = record.select(Filter())
+    record.close()
+    assert [(r["serial"], r["lot"], r["operator"], r["readings"]) for r in rows] == [
+        ("OLD1", "", "", "[]")]
+    db = sqlite3.connect(path)
+    assert db.execute("SELECT value FROM record_info").fetchone()[0] == str(SCHEMA_VERSION)
+    db.close()
+
+
+def test_reworked_failed_unit_is_recorded_again_without_recalibrate(tmp_path: Path) -> None:
+    """A unit whose last record is a failure gets a new revision; passed units still need
+    --recalibrate (the old code refused both)."""
+    out = tmp_path / "out"
+    out.mkdir()
+    assert _batch(_lot(tmp_path / "a.csv", _truths(3, failing=1)), out).returncode == 1
+    second = _batch(_lot(tmp_path / "b.csv", _truths(3), seed=2), out, "--operator", "kim")
+    assert second.returncode == 2
+    rows = _rows(out)
+    assert [(r["serial"], r["revision"], r["current"], r["verdict"]) for r in rows] == [
+        ("HV0000", 1, 1, "pass"), ("HV0001", 1, 0, "fail"), ("HV0001", 2, 1, "pass"),
+        ("HV0002", 1, 1, "pass")]
+    assert rows[2]["operator"] == "kim" and rows[2]["lot"] == "b"
+    readings = json.loads(str(rows[2]["readings"]))
+    assert readings[0]["line"] > 0 and {"raw_mean_counts", "direction"} <= set(readings[0])
+    assert second.stdout.count("already recorded as passed") == 2
