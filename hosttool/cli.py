@@ -187,13 +187,19 @@ def demo(folder: Path | None, example: str) -> None:
               type=click.Path(dir_okay=False, path_type=Path), help="CAL.json to write.")
 @click.option("--cal-time", "cal_time", metavar="ISO8601",
               help="Calibration time in UTC (default: the unit's latest time_utc reading).")
+@click.option("--json", "as_json", is_flag=True,
+              help="Print one JSON object: serial, verdict, image, revision, reasons.")
 @guarded
-def calibrate(spec: Path, readings: Path, serial: str, out: Path, cal_time: str | None) -> None:
+def calibrate(spec: Path, readings: Path, serial: str, out: Path, cal_time: str | None,
+              as_json: bool) -> None:
     """Fit one unit's constants from READINGS and judge them (exit 0 pass, 1 fail)."""
-    from hosttool.commands.calibrate import run_calibrate
+    from hosttool.commands.calibrate import result_json, run_calibrate
 
     result, text = run_calibrate(spec, readings, serial=serial, out=out, cal_time=cal_time)
-    click.echo(text, nl=False)
+    if as_json:
+        _emit_json(result_json(result, out))
+    else:
+        click.echo(text, nl=False)
     sys.exit(0 if result.passed else 1)
 
 
@@ -275,6 +281,83 @@ def batch(spec: Path, readings: Path, out: Path, db: str | None, station: str | 
     else:
         click.echo(batch_text(summary, readings=readings.name, out=out), nl=False)
     sys.exit(summary.exit_code)
+
+
+@main.group()
+def record() -> None:
+    """Query and export the production record (SQLite file or PostgreSQL server)."""
+
+
+def _db_option(func: F) -> F:
+    return click.option(
+        "--db", "db", required=True, envvar="HOSTTOOL_DB", metavar="PATH|URI",
+        help="The record: an SQLite file or postgresql://USER@HOST:PORT/DBNAME "
+        "(environment HOSTTOOL_DB).")(func)
+
+
+def _filter_options(func: F) -> F:
+    for option in reversed((
+            click.option("--lot", "lot", help="Only this lot."),
+            click.option("--serial", "serial", help="Only this serial."),
+            click.option("--verdict", "verdict", type=click.Choice(["pass", "fail"]),
+                         help="Only passed or only failed units."),
+            click.option("--station", "station", help="Only this station."),
+            click.option("--since", "since", metavar="ISO8601",
+                         help="Calibrated at or after this UTC time."),
+            click.option("--until", "until", metavar="ISO8601",
+                         help="Calibrated before this UTC time."),
+            click.option("--all-revisions", "all_revisions", is_flag=True,
+                         help="Include superseded revisions (default: current rows only)."))):
+        func = option(func)
+    return func
+
+
+@record.command("list")
+@_db_option
+@_filter_options
+@click.option("--json", "as_json", is_flag=True, help="Print a JSON array of rows.")
+@guarded
+def record_list(db: str, as_json: bool, **filters: Any) -> None:
+    """List recorded units (current revisions unless --all-revisions)."""
+    from hosttool.commands.record import fetch, list_text, make_filter, row_summary
+    from hosttool.production.record import shown
+
+    rows = fetch(db, make_filter(**filters))
+    if as_json:
+        _emit_json([row_summary(r) for r in rows])
+    else:
+        click.echo(list_text(rows, shown(db)), nl=False)
+
+
+@record.command("show")
+@click.argument("serial")
+@_db_option
+@click.option("--json", "as_json", is_flag=True, help="Print every revision's full row.")
+@guarded
+def record_show(serial: str, db: str, as_json: bool) -> None:
+    """Show every revision of one SERIAL with its traceability."""
+    from hosttool.commands.record import run_show, show_text
+
+    rows = run_show(db, serial)
+    if as_json:
+        _emit_json(rows)
+    else:
+        click.echo(show_text(rows, serial), nl=False)
+
+
+@record.command("export")
+@_db_option
+@_filter_options
+@click.option("--format", "fmt", required=True, type=click.Choice(["csv", "json"]),
+              help="csv: one line per row, JSON columns as JSON text; json: an array.")
+@click.option("-o", "--output", "out", type=click.Path(dir_okay=False, path_type=Path),
+              help="File to write (default: standard output).")
+@guarded
+def record_export(db: str, fmt: str, out: Path | None, **filters: Any) -> None:
+    """Export every column of the selected rows."""
+    from hosttool.commands.record import make_filter, run_export
+
+    click.echo(run_export(db, make_filter(**filters), fmt=fmt, out=out), nl=False)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -12,7 +12,8 @@ from pathlib import Path
 
 from test_production import _batch, _lot, _rows, _truths
 
-from hosttool.production.record import SCHEMA_VERSION, Filter, open_record
+from hosttool.production.record import SCHEMA_VERSION, Filter
+from hosttool.production.record_open import open_record
 
 V1 = """
 CREATE TABLE record_info (key TEXT PRIMARY KEY, value TEXT NOT NULL);

@@ -102,6 +102,13 @@ def calibration_text(result: UnitCalibration, design: Design, *, readings: str) 
     return "\n".join(lines) + "\n"
 
 
+def result_json(result: UnitCalibration, out: Path) -> dict[str, object]:
+    """The object ``calibrate --json`` prints: the shape of one unit of ``batch --json``
+    (no image or revision: calibrate records nothing), and the CAL.json written."""
+    return {"serial": result.serial, "verdict": result.verdict, "image": None,
+            "revision": None, "reasons": list(result.reasons), "calibration": str(out)}
+
+
 def cal_time_option(text: str | None) -> int | None:
     """The --cal-time option (ISO 8601 UTC) in seconds since 1970, or None."""
     return None if text is None else parse_time_utc(text, "--cal-time")

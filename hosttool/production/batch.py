@@ -54,7 +54,8 @@ from hosttool.formats.readings import (
     unit_cal_time,
 )
 from hosttool.production.fit import CalibrationContext, calibrate_unit, point_limits
-from hosttool.production.record import Record, open_record
+from hosttool.production.record import Record
+from hosttool.production.record_open import open_record
 from hosttool.spec.schema import load_spec
 from hosttool.util.atomic import make_folder
 from hosttool.util.atomic_group import write_group

@@ -1,9 +1,9 @@
-"""The production record: one interface over two back ends.
+"""The production record: its schema and the one interface over two back ends.
 
-``open_record(where)`` opens an SQLite file (the embedded default: one station, one folder;
-record_sqlite.py) or, for a ``postgresql://`` URI, a PostgreSQL server shared by the
-stations of a line (record_postgres.py). Both hold the same versioned schema and give the
-same guarantees:
+``record_open.open_record(where)`` opens an SQLite file (the embedded default: one
+station, one folder; record_sqlite.py) or, for a ``postgresql://`` URI, a PostgreSQL
+server shared by the stations of a line (record_postgres.py). Both hold the same
+versioned schema and give the same guarantees:
 
 - one transaction per group of units (``group()``), rolled back whole if the process dies;
 - ``lock(serials)`` inside it: no other station can record those serials until the commit
@@ -115,8 +115,8 @@ ROW_QUERY = ("SELECT id, serial, revision, station, cal_time_utc, spec_sha256, c
 @dataclass(frozen=True)
 class Filter:
     """Which rows ``select`` returns; None matches anything. Times are ISO 8601 UTC text
-    compared with the recorded wall-clock time (``recorded_utc``), ``since`` inclusive,
-    ``until`` exclusive."""
+    with whole seconds (2025-03-04T08:15:00Z) compared with the calibration time
+    (``cal_time_utc``, same form), ``since`` inclusive, ``until`` exclusive."""
 
     lot: str | None = None
     serial: str | None = None
@@ -136,10 +136,10 @@ class Filter:
                 terms.append(f"{column} = ?")
                 values.append(value)
         if self.since is not None:
-            terms.append("recorded_utc >= ?")
+            terms.append("cal_time_utc >= ?")
             values.append(self.since)
         if self.until is not None:
-            terms.append("recorded_utc < ?")
+            terms.append("cal_time_utc < ?")
             values.append(self.until)
         if self.current_only:
             terms.append("current = 1")
@@ -186,17 +186,6 @@ _URI = re.compile(r"^postgres(ql)?://", re.IGNORECASE)
 def is_server(where: str | Path) -> bool:
     """True when ``where`` names a PostgreSQL server (a libpq URI) rather than a file."""
     return bool(_URI.match(str(where)))
-
-
-def open_record(where: str | Path) -> Record:
-    """Open (creating or migrating its schema) the record at a path or a postgresql:// URI."""
-    # imported here on purpose: the back ends import this module (its schema), and psycopg
-    # is loaded only by a station that records into a server
-    if is_server(where):
-        from hosttool.production.record_postgres import PostgresRecord
-        return PostgresRecord(str(where))
-    from hosttool.production.record_sqlite import SqliteRecord
-    return SqliteRecord(Path(where))
 
 
 def shown(where: str | Path) -> str:
