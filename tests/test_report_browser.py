@@ -49,7 +49,7 @@ def test_report_renders_with_plots_in_headless_chromium(tmp_path: Path) -> None:
                               report.as_uri()], check=True, timeout=120, capture_output=True,
                              text=True).stdout
     assert 'id="verdict">PASS<' in dom
-    assert dom.count("<img") == 4
+    assert dom.count("<img") == 5         # end to end, static, magnitude, step, headroom
     pixels = mpimg.imread(shot)[..., :3]
     teal = np.array([int(REALISED[i:i + 2], 16) / 255 for i in (1, 3, 5)])
     # the plots' line and bar colour is painted: the PNGs decoded and were drawn

@@ -125,7 +125,7 @@ def test_report_is_self_contained_html(tmp_path: Path) -> None:
                                        "--samples", "20000", "--report", str(report)])
     assert result.exit_code == 0
     text = report.read_text()
-    assert text.count("data:image/png;base64,") == 4
+    assert text.count("data:image/png;base64,") == 5      # with the end-to-end plot
     assert "http://" not in text and "https://" not in text  # nothing fetched from outside
     assert "legal-metrology authority" in text
 

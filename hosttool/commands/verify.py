@@ -15,12 +15,23 @@ from hosttool.errors import InputError, OutputError
 from hosttool.formats.caljson import load_calibration
 from hosttool.spec.schema import load_spec
 from hosttool.util.tables import Row, sections, table
+from hosttool.verify.endtoend import EndToEnd
 from hosttool.verify.proof import Engine, Verification, verify_design
 from hosttool.verify.sweep import SettledEngine
 
 
 def _fmt(value: float | None, digits: int = 4) -> str:
     return "-" if value is None else f"{value:.{digits}g}"
+
+
+def end_to_end_json(e: EndToEnd) -> dict[str, Any]:
+    """The ``end_to_end`` object of ``verify --json`` (output units)."""
+    return {"max_error": e.worst, "at": e.worst_at, "at_temperature_c": e.worst_temperature_c,
+            "model_error": e.worst_model, "arithmetic_error": e.worst_arithmetic,
+            "bridge_nonlinearity": e.sensor_nonlinearity, "budget": e.budget,
+            "passed": e.passed, "points": int(e.measurand.size),
+            "temperatures_c": list(e.temperatures_c),
+            "suggested_order": e.suggested_order, "suggested_max_error": e.suggested_worst}
 
 
 def verify_json(v: Verification) -> dict[str, Any]:
@@ -35,6 +46,7 @@ def verify_json(v: Verification) -> dict[str, Any]:
         "error_bound_lsb": d.error_bound_lsb, "error_rms_predicted_lsb": d.error_rms_lsb,
         "ideal_error_bound_lsb": d.ideal_error_bound_lsb,
         "budget": v.budget_units, "budget_used": v.budget_used,
+        "end_to_end": None if v.accuracy is None else end_to_end_json(v.accuracy),
         "static": {"codes": s.codes, "temperatures_c": list(s.temperatures_c),
                    "evaluations": s.evaluations,
                    "max_error_lsb": s.max_error_lsb, "mean_abs_error_lsb": s.mean_abs_error_lsb,
@@ -87,10 +99,26 @@ def verify_text(v: Verification) -> str:
         ("against the ideal design", f"{d.ideal_error_bound_lsb:.4g} LSB",
          f"= {d.to_units(d.ideal_error_bound_lsb):.4g} {unit}"),
         ("error budget", "-" if v.budget_units is None else f"{v.budget_units:g} {unit}",
-         "" if v.budget_used is None else f"{v.budget_used:.1%} used by the arithmetic"),
+         "" if v.budget_used is None else
+         f"{v.budget_used:.1%} used by the reading against the measurand"),
         ("VERDICT", "PASS" if v.passed else "FAIL", "; ".join(v.reasons)),
     ]
+    e = v.accuracy
+    accuracy_rows: list[Row] = [] if e is None else [
+        ("largest error", f"{e.worst:.4g} {unit}",
+         f"at {e.worst_at:.6g} {unit}" + ("" if e.worst_temperature_c is None
+                                          else f", {e.worst_temperature_c:g} C")),
+        ("model part", f"{e.worst_model:.4g} {unit}",
+         "float64 pipeline on the exact bridge voltage: linearisation residual"),
+        ("arithmetic part", f"{e.worst_arithmetic:.4g} {unit}",
+         "ADC code and integer rounding"),
+        ("bridge nonlinearity", f"{e.sensor_nonlinearity:.4g} {unit}",
+         "of a linear reading, before linearisation"),
+        ("verdict", "-" if e.passed is None else ("pass" if e.passed else "FAIL"),
+         f"{e.measurand.size} measurands x {max(1, len(e.temperatures_c))} temperatures"),
+    ]
     return sections([f"{d.spec.name}: verification (seed {v.seed})",
+                     table("End to end: reading against the measurand", accuracy_rows),
                      table("Static path, exhaustive", static_rows),
                      table("Dynamic tests (max error / proven bound)", test_rows),
                      table("Verdict", summary)])

@@ -498,3 +498,12 @@ def static_reference(design: Design, codes: ArrayLike, temps_centi: ArrayLike | 
     x, t = _inputs(design, codes, temps_centi)
     return _static_float(design, _chain_input(design, x), t, ideal)
 
+
+def static_reference_real(design: Design, codes: ArrayLike,
+                          temps_centi: ArrayLike | None = None) -> F64:
+    """The float64 static path of real-valued codes: what the pipeline, with the constants
+    in force and no rounding anywhere, reads from an exact (unquantised) ADC input."""
+    x = np.asarray(codes, dtype=np.float64)
+    t = None if temps_centi is None else np.asarray(temps_centi, dtype=np.int64)
+    v = x * 2.0 ** design.guard_bits - float(design.constants.offset)
+    return _static_float(design, v, t, False)

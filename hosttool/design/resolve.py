@@ -377,7 +377,13 @@ def _design_errors(cascade: CascadeAnalysis, input_bound: int, scale: Scale, c: 
     coeff = cascade.total.minus(cascade.ideal_total).l1 * input_bound * gain
     terms = [ErrorTerm("filter coefficients", coeff, coeff / math.sqrt(3))]
     if lin is not None:
-        q = sum(abs(x / 2 ** LIN_FRAC - y) for x, y in zip(c.lin, lin.coeffs, strict=True))
+        nominal = tuple(quantise(y, LIN_FRAC) for y in lin.coeffs)
+        if c.lin == nominal:
+            q = sum(abs(x / 2 ** LIN_FRAC - y) for x, y in zip(c.lin, lin.coeffs, strict=True))
+        else:
+            # a unit's own coefficients (a fit to its readings) are not a quantisation of the
+            # nominal ones: each is its fit rounded to nearest, at most half a Q30 step off
+            q = len(c.lin) * 0.5 * 2.0 ** -LIN_FRAC
         terms.append(ErrorTerm("linearisation coefficients", q * 2.0 ** lin.norm_shift, 0.0))
         if lin.fit_residual_lsb:
             terms.append(ErrorTerm("linearisation fit", lin.fit_residual_lsb, 0.0))

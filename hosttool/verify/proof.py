@@ -21,6 +21,7 @@ from numpy.typing import NDArray
 from hosttool.design.model import run_integer, run_reference
 from hosttool.design.resolve import Design
 from hosttool.errors import InputError
+from hosttool.verify.endtoend import EndToEnd, end_to_end, error_budget
 from hosttool.verify.sweep import STATIC_BINS, SettledEngine, sweep_static
 
 I64 = NDArray[np.int64]
@@ -88,28 +89,15 @@ class Verification:
     tests: tuple[TestResult, ...]
     engines: tuple[str, ...]
     budget_units: float | None           # the spec's error budget, output units
-    budget_used: float | None            # ideal-design error bound / budget
+    budget_used: float | None            # end-to-end worst error / budget
     seed: int
     reasons: tuple[str, ...]
+    accuracy: EndToEnd | None = None     # end to end against the physical truth (layer 4)
 
     @property
     def passed(self) -> bool:
         """The verdict: every test within its bound, engines agree, budget respected."""
         return not self.reasons
-
-
-def error_budget(design: Design) -> float | None:
-    """The spec's allowed error in output units (calibration.max_error or % of span)."""
-    cal = design.spec.calibration
-    if cal is None:
-        return None
-    budget = design.budget
-    options = []
-    if cal.max_error is not None:
-        options.append(cal.max_error)
-    if cal.max_error_pct_span is not None:
-        options.append(cal.max_error_pct_span / 100 * (budget.range_max - budget.range_min))
-    return min(options) if options else None
 
 
 class _Codes:
@@ -320,22 +308,25 @@ def verify_design(design: Design, *, samples: int = LONG_RUN_MIN, seed: int = 0,
         timings["static"] = lap - clock
         timings["dynamic"] = time.perf_counter() - lap
     budget = error_budget(design)
-    used = None
+    accuracy = end_to_end(design)
     reasons: list[str] = []
-    if budget is not None:
-        used = design.to_units(design.ideal_error_bound_lsb) / budget
-        if used > 1:
-            reasons.append(f"the arithmetic alone may err by "
-                           f"{design.to_units(design.ideal_error_bound_lsb):.4g} "
-                           f"{design.spec.sensor.unit}, more than the budget {budget:g}")
+    why = accuracy.reason(design.spec.sensor.unit, design.spec.linearisation.mode)
+    if why is not None:
+        reasons.append(why)
+    if budget is not None and design.to_units(design.ideal_error_bound_lsb) > budget:
+        reasons.append(f"the arithmetic alone may err by "
+                       f"{design.to_units(design.ideal_error_bound_lsb):.4g} "
+                       f"{design.spec.sensor.unit} (proven bound over every code), more than "
+                       f"the budget {budget:g}")
     if not static.passed:
         reasons.append(_static_reason(static))
     for test in tests:
         if not test.passed:
             reasons.append(_test_reason(test))
     return Verification(design=design, static=static, tests=tests,
-                        engines=("python", *engines), budget_units=budget, budget_used=used,
-                        seed=seed, reasons=tuple(reasons))
+                        engines=("python", *engines), budget_units=budget,
+                        budget_used=accuracy.budget_used, seed=seed, reasons=tuple(reasons),
+                        accuracy=accuracy)
 
 
 def _static_reason(s: StaticResult) -> str:

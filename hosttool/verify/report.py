@@ -103,6 +103,29 @@ def _static_error(v: Verification) -> str:
     return png_data_uri(fig)
 
 
+def _end_to_end(v: Verification) -> str:
+    """Reading minus measurand against the measurand, the budget drawn as two lines."""
+    e = v.accuracy
+    assert e is not None
+    unit = v.design.spec.sensor.unit
+    fig, ax = plt.subplots(figsize=(8, 3.6))
+    labels = [f"{t:g} C" for t in e.temperatures_c] or ["total"]
+    for row, label in zip(e.total, labels, strict=True):
+        ax.plot(e.measurand, row, lw=0.8, label=f"total, {label}" if e.temperatures_c
+                else "total (reading - measurand)")
+    ax.plot(e.measurand, e.model.max(axis=0), color=IDEAL, ls="--", lw=1,
+            label="model part (largest over temperature)")
+    if e.budget is not None:
+        for sign in (1, -1):
+            ax.axhline(sign * e.budget, color=MAINS, ls=":",
+                       label="error budget" if sign > 0 else None)
+    ax.ticklabel_format(axis="y", useOffset=False)
+    ax.set_xlabel(f"measurand, {unit}")
+    ax.set_ylabel(f"error, {unit}")
+    ax.legend(fontsize=7)
+    return png_data_uri(fig)
+
+
 def _headroom(v: Verification) -> str:
     nodes = v.design.all_nodes
     fig, ax = plt.subplots(figsize=(8, 0.45 * len(nodes) + 1))
@@ -138,14 +161,27 @@ def report_html(v: Verification) -> str:
                f"{s.max_error_lsb:.4g}", f"{s.bound_lsb:.4g}", f"{s.mean_abs_error_lsb:.4g}",
                str(s.saturations), "yes" if s.monotonic else "NO",
                "pass" if s.passed else "FAIL"]]
-    budget = ("no error budget in the spec" if v.budget_units is None else
-              f"budget {v.budget_units:g} {unit}; the arithmetic uses at most "
-              f"{v.budget_used:.1%} of it")
+    e = v.accuracy
+    budget = ("no error budget in the spec" if v.budget_units is None or v.budget_used is None
+              else f"budget {v.budget_units:g} {unit}; the reading against the measurand "
+              f"uses {v.budget_used:.1%} of it")
+    accuracy = [] if e is None else [[
+        f"{e.worst:.4g}", f"{e.worst_at:.6g}",
+        "-" if e.worst_temperature_c is None else f"{e.worst_temperature_c:g}",
+        f"{e.worst_model:.4g}", f"{e.worst_arithmetic:.4g}", f"{e.sensor_nonlinearity:.4g}",
+        "-" if e.budget is None else f"{e.budget:g}",
+        "-" if e.passed is None else ("pass" if e.passed else "FAIL")]]
     summary = (f"Proven error bound {d.error_bound_lsb:.4g} LSB "
                f"({d.to_units(d.error_bound_lsb):.4g} {unit}) against the float64 reference "
                f"with the realised constants; {d.ideal_error_bound_lsb:.4g} LSB against the "
                f"ideal design; predicted RMS {d.error_rms_lsb:.3g} LSB. {budget}.")
-    sections = [
+    sections = [] if e is None else [
+        _section("End to end: reading against the measurand",
+                 headers=[f"largest |error| {unit}", f"at {unit}", "at C",
+                          f"model {unit}", f"arithmetic {unit}",
+                          f"bridge nonlinearity {unit}", f"budget {unit}", "verdict"],
+                 rows=accuracy, plots=(("error against measurand", _end_to_end(v)),))]
+    sections += [
         _section("Static path", headers=["inputs", "max |error| LSB", "bound LSB",
                                          "mean |error| LSB", "saturations", "monotonic",
                                          "verdict"], rows=static,
