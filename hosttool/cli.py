@@ -141,7 +141,8 @@ def render(spec: Path, folder: Path, calibration: Path | None, force: bool) -> N
               help="Folder to write the firmware into (created if missing).")
 @click.option("--spec", "spec", type=click.Path(dir_okay=False, path_type=Path),
               help="Also render this spec's headers (include/) and check vectors (vectors/).")
-@click.option("--force", is_flag=True, help="Overwrite files edited since hosttool wrote them.")
+@click.option("--force", is_flag=True, help="Overwrite files edited since hosttool wrote them; "
+              "render headers that change the meaning of calibration blocks.")
 @guarded
 def firmware(folder: Path, spec: Path | None, force: bool) -> None:
     """Write the C reference firmware with its Makefile and CMakeLists.txt into a folder."""

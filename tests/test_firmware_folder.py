@@ -228,3 +228,19 @@ def test_wheel_carries_the_firmware(tmp_path: Path) -> None:
             assert (work / "fw" / rel).is_file(), f"{rel} is missing from the wheel"
     if shutil.which("make") and shutil.which("gcc"):
         _run("make", "-C", work / "fw", "host", "check-host")
+
+
+def test_change_of_block_meaning_is_refused_as_by_render(tmp_path: Path) -> None:
+    # The same rule as hosttool render (format identity): a new output step changes what a
+    # calibration block's integers mean, so blocks in the field would be refused.
+    spec = tmp_path / "hive_scale.toml"
+    spec.write_text((EXAMPLES / "hive_scale.toml").read_text())
+    assert _hosttool("firmware", "-o", tmp_path / "fw", "--spec", spec).returncode == 0
+    spec.write_text(re.sub(r"^resolution = 0\.01 ", "resolution = 0.02 ", spec.read_text(),
+                           flags=re.M))
+    before = (tmp_path / "fw" / "vectors" / "hive_scale.expected").read_bytes()
+    done = _hosttool("firmware", "-o", tmp_path / "fw", "--spec", spec)
+    assert done.returncode == 2 and "would be refused" in done.stderr, done.stderr
+    assert (tmp_path / "fw" / "vectors" / "hive_scale.expected").read_bytes() == before
+    assert _hosttool("firmware", "-o", tmp_path / "fw", "--spec", spec, "--force"
+                     ).returncode == 0

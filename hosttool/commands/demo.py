@@ -19,6 +19,7 @@ from hosttool.design.model import run_integer
 from hosttool.design.resolve import Design, make_design
 from hosttool.errors import OutputError
 from hosttool.firmware import build as cbuild
+from hosttool.firmware.export import write_firmware
 from hosttool.firmware.run import build_runner, demo_vectors, run_runner
 from hosttool.production.batch import run_batch
 from hosttool.production.synthetic_lot import UnitTruth, lot_csv, random_truth
@@ -118,6 +119,10 @@ def _firmware(design: Design, folder: Path) -> Iterator[str]:
     include.mkdir(exist_ok=True)
     paths = [path for path, _ in write_headers(render_headers(design), include, force=False)]
     yield f"render  {', '.join(str(p) for p in paths)}"
+    sources = folder / "firmware"
+    write_firmware(sources, design)
+    yield (f"sources {sources}  (reference firmware, Makefile, CMakeLists.txt, headers and check "
+           f"vectors; build and check it with: make -C {sources} host check-host)")
     if cbuild.missing_tools("host", run=True):
         yield "firmware: no host C compiler (gcc) found; skipped building the host runner"
         return

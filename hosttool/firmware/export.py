@@ -25,7 +25,12 @@ from pathlib import Path
 import numpy as np
 from numpy.typing import NDArray
 
-from hosttool.codegen.render import check_overwrite, render_headers, write_headers
+from hosttool.codegen.render import (
+    check_overwrite,
+    check_replaced_blocks,
+    render_headers,
+    write_headers,
+)
 from hosttool.design.model import run_integer
 from hosttool.design.resolve import Design
 from hosttool.errors import OutputError
@@ -156,6 +161,8 @@ def write_firmware(folder: Path, design: Design | None = None, *,
         files |= _vector_files(design)
     headers = render_headers(design) if design is not None else ()
     listed = _read_manifest(folder)
+    if design is not None:   # as render does: a change of the blocks' meaning is named
+        check_replaced_blocks(folder / HEADER_FOLDER, design, force=force)
     if not force:
         _check_overwrite(folder, files, listed)
         for header in headers:
