@@ -7,7 +7,8 @@ import json
 from collections.abc import Sequence
 from pathlib import Path
 
-from hosttool.design.resolve import LIN_FRAC, Design, UnitConstants, make_design
+from hosttool.design.cached import cached_design
+from hosttool.design.resolve import LIN_FRAC, Design, UnitConstants
 from hosttool.errors import InputError
 from hosttool.formats.readings import load_readings, unit_cal_time
 from hosttool.production.fit import (
@@ -119,7 +120,7 @@ def run_calibrate(spec_path: Path, readings_path: Path, *, serial: str, out: Pat
     """Calibrate ``serial`` from the readings, write CAL.json to ``out`` (also for a unit
     that fails its limits: the figures are the record); return the result and its text."""
     override = cal_time_option(cal_time)
-    design = make_design(load_spec(spec_path))
+    design = cached_design(load_spec(spec_path))
     ctx = CalibrationContext.of(design)
     readings = load_readings(readings_path, design.spec)
     unit = readings.units.get(serial.strip())

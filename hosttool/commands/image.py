@@ -4,7 +4,8 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from hosttool.design.resolve import Design, make_design
+from hosttool.design.cached import cached_design
+from hosttool.design.resolve import Design
 from hosttool.errors import InputError
 from hosttool.formats.calblock import (
     BLOCK_SIZE,
@@ -38,7 +39,7 @@ def image_bytes(design: Design, block: bytes, *, as_bin: bool, merge: Path | Non
 def run_image(spec_path: Path, cal_path: Path, *, out: Path, merge: Path | None,
               as_bin: bool) -> str:
     """Write the unit's image; return the line to print."""
-    design = make_design(load_spec(spec_path))
+    design = cached_design(load_spec(spec_path))
     record = read_passed(cal_path, design)
     block = encode(design, record.constants, serial=record.serial,
                    cal_time_utc=record.cal_time_utc)

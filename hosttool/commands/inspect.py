@@ -6,7 +6,8 @@ from pathlib import Path
 from typing import Any
 
 from hosttool.commands.calibrate import columns, unit_constant_rows
-from hosttool.design.resolve import Design, UnitConstants, make_design
+from hosttool.design.cached import cached_design
+from hosttool.design.resolve import Design, UnitConstants
 from hosttool.formats.calblock import BLOCK_SIZE, CalBlock
 from hosttool.formats.caljson import constants_json
 from hosttool.formats.hexfile import ERASED, block_area, read_block
@@ -55,7 +56,7 @@ def inspect_text(data: dict[str, Any], design: Design, constants: UnitConstants)
 
 def run_inspect(spec_path: Path, path: Path, *, as_json: bool) -> tuple[dict[str, Any], str]:
     """Inspect an image; return its JSON object and the text to print."""
-    design = make_design(load_spec(spec_path))
+    design = cached_design(load_spec(spec_path))
     block, area = read_block(path, design)
     data = inspect_json(path, design, block, area)
     return data, inspect_text(data, design, block.constants)

@@ -5,7 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from hosttool.codegen.render import check_replaced_blocks, render_headers, write_headers
-from hosttool.design.resolve import make_design
+from hosttool.design.cached import cached_design
 from hosttool.formats.caljson import read_passed
 from hosttool.spec.schema import load_spec
 from hosttool.util.utctime import format_time_utc
@@ -20,7 +20,7 @@ def render_spec(spec_path: Path, folder: Path, *, calibration: Path | None = Non
     headers render wrote before, one line says whether calibration blocks made for them stay
     valid; a change of the blocks' meaning is refused (exit 2) unless ``force``.
     """
-    design = make_design(load_spec(spec_path))
+    design = cached_design(load_spec(spec_path))
     note = None
     if calibration is not None:
         record = read_passed(calibration, design)

@@ -10,7 +10,8 @@ from pathlib import Path
 from typing import Any
 
 from hosttool import __version__
-from hosttool.design.resolve import Design, make_design
+from hosttool.design.cached import cached_design
+from hosttool.design.resolve import Design
 from hosttool.errors import InputError, OutputError
 from hosttool.formats.caljson import load_calibration
 from hosttool.spec.schema import load_spec
@@ -162,7 +163,7 @@ def run_verify(spec_path: Path, *, calibration: Path | None, samples: int, seed:
     timings = {"import": clock - started if started is not None else 0.0}
     if report is not None:
         _check_report_path(report)
-    design = make_design(load_spec(spec_path))
+    design = cached_design(load_spec(spec_path))
     if calibration is not None:
         design = design.with_constants(load_calibration(calibration, design))
     engines, static_engines = _engines(design, engine)

@@ -23,7 +23,6 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.signal
 from numpy.typing import NDArray
 
 from hosttool.design.fixedpoint import INT32_MAX, INT64_MAX, QFormat, frac_bits_for, quantise
@@ -155,6 +154,7 @@ def _symmetric(taps: NDArray[np.float64]) -> tuple[float, ...]:
 
 def kaiser_taps(stage: FilterStage, *, field: str) -> tuple[float, ...]:
     """Kaiser-window low-pass (type I: odd length) of ``stage``, via kaiserord and firwin."""
+    import scipy.signal  # deferred: ~1 s to import; a cached design needs none
     assert stage.cutoff_hz is not None and stage.transition_hz is not None
     attenuation = stage.attenuation_db if stage.attenuation_db is not None else 60.0
     nyquist = stage.sample_rate_hz / 2
@@ -265,6 +265,7 @@ def _check_stable(stage: BiquadStage, word: int, key: str, remedy: str, field: s
 
 def butterworth_sections(stage: FilterStage, word: int) -> tuple[Biquad, ...]:
     """Butterworth low-pass as unit-DC-gain sections, lowest pole radius (lowest Q) first."""
+    import scipy.signal  # deferred: ~1 s to import; a cached design needs none
     assert stage.order is not None and stage.cutoff_hz is not None
     sos = scipy.signal.butter(stage.order, stage.cutoff_hz, fs=stage.sample_rate_hz,
                               output="sos")
@@ -275,6 +276,7 @@ def butterworth_sections(stage: FilterStage, word: int) -> tuple[Biquad, ...]:
 
 def notch_section(stage: FilterStage, word: int) -> Biquad:
     """Second-order notch of scipy.signal.iirnotch, as one unit-DC-gain section."""
+    import scipy.signal  # deferred: ~1 s to import; a cached design needs none
     assert stage.frequency_hz is not None and stage.quality is not None
     b, a = scipy.signal.iirnotch(stage.frequency_hz, stage.quality, fs=stage.sample_rate_hz)
     return quantise_biquad(np.asarray(b), np.asarray(a), word)

@@ -22,7 +22,6 @@ from fractions import Fraction
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy import signal
 
 #: Float64 rounding in long convolutions is far below this relative margin added to bounds.
 FLOAT_MARGIN = 1e-9
@@ -49,6 +48,7 @@ class Response:
 
     def then(self, other: Response) -> Response:
         """This response followed by ``other`` (convolution; tails combined as a bound)."""
+        from scipy import signal  # deferred: ~1 s to import; a cached design needs none
         la = float(np.sum(np.abs(self.h)))
         lb = float(np.sum(np.abs(other.h)))
         h = signal.fftconvolve(self.h, other.h) if min(self.h.size, other.h.size) > 64 \
@@ -116,6 +116,7 @@ def biquad(b: Sequence[float] | NDArray[np.float64], a: Sequence[float] | NDArra
 
     ``a`` is (1, a1, a2). Raises ValueError for poles on or outside the unit circle.
     """
+    from scipy import signal  # deferred: ~1 s to import; a cached design needs none
     rho = pole_radius(a[1], a[2])
     if not rho < 1.0:
         raise ValueError(f"unstable biquad: pole radius {rho}")

@@ -24,9 +24,9 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from numba import njit
 from numpy.typing import ArrayLike, NDArray
 
+from hosttool.design.compiled import njit
 from hosttool.design.filters import FirStage
 from hosttool.design.fixedpoint import INT32_MAX, INT32_MIN
 from hosttool.design.resolve import LIN_FRAC, Design

@@ -15,7 +15,6 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.signal
 from numpy.typing import ArrayLike, NDArray
 
 from hosttool.design.filters import BiquadStage, FirStage, Stage, dominant_pole, realised_pole
@@ -112,6 +111,7 @@ def _taps(stage: FirStage, realised: bool) -> NDArray[np.float64]:
 def frequency_response(stage: Stage, freqs_hz: ArrayLike, *, realised: bool
                        ) -> NDArray[np.complex128]:
     """Complex H(e^{j 2 pi f / rate}) of one stage at its input rate."""
+    import scipy.signal  # deferred: ~1 s to import; a cached design needs none
     f = np.atleast_1d(np.asarray(freqs_hz, dtype=np.float64))
     if isinstance(stage, FirStage):
         _, h = scipy.signal.freqz(_taps(stage, realised), [1.0], worN=f, fs=stage.rate_hz)
@@ -137,6 +137,7 @@ def impulse_response(stage: Stage, n: int, *, realised: bool = True) -> NDArray[
 
 
 def _filter(stage: Stage, x: NDArray[np.float64], realised: bool) -> NDArray[np.float64]:
+    import scipy.signal  # deferred: ~1 s to import; a cached design needs none
     if isinstance(stage, FirStage):
         return np.asarray(scipy.signal.lfilter(_taps(stage, realised), [1.0], x), np.float64)
     return np.asarray(scipy.signal.sosfilt(_sos(stage, realised), x), np.float64)

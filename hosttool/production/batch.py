@@ -42,7 +42,7 @@ from datetime import UTC, datetime
 from pathlib import Path
 
 from hosttool import __version__
-from hosttool.design.resolve import make_design
+from hosttool.design.cached import cached_design
 from hosttool.errors import HostToolError, OutputError
 from hosttool.formats.calblock import encode
 from hosttool.formats.caljson import constants_json
@@ -373,7 +373,7 @@ def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: str | Path
               progress: Callable[[Iterable[Prepared], int], Iterable[Prepared]] | None = None
               ) -> BatchSummary:
     """Calibrate, image and record every unit of a readings file."""
-    design = make_design(load_spec(spec_path))
+    design = cached_design(load_spec(spec_path))
     ctx = CalibrationContext.of(design)
     block_area(design)
     readings = load_readings(readings_path, design.spec, per_unit=True)

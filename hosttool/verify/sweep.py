@@ -23,9 +23,9 @@ from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
-from numba import njit
 from numpy.typing import NDArray
 
+from hosttool.design.compiled import njit
 from hosttool.design.model import (
     F_GUARD,
     F_OFFSET,
