@@ -250,6 +250,13 @@ def inspect(spec: Path, file: Path, as_json: bool) -> None:
 @click.option("--lot", "lot", help="Lot name in the record (default: the readings file's "
               "name without its extension).")
 @click.option("--operator", "operator", default="", help="Who runs the station (recorded).")
+@click.option("--register", "register", type=click.Path(dir_okay=False, path_type=Path),
+              help="The register of reference standards (TOML) the readings name.")
+@click.option("--standard", "standards", multiple=True, metavar="ID",
+              help="A standard of the register used for every reading of the lot (repeat "
+              "for several); readings may also name theirs in a standards column.")
+@click.option("--certificates", is_flag=True,
+              help="Write a certificate (HTML) beside the image of every passed unit.")
 @click.option("--json", "as_json", is_flag=True,
               help="Print one JSON object: counts and one object per unit.")
 @click.option("--recalibrate", is_flag=True,
@@ -262,8 +269,9 @@ def inspect(spec: Path, file: Path, as_json: bool) -> None:
               help="Worker processes for the calibration arithmetic (small lots use one).")
 @guarded
 def batch(spec: Path, readings: Path, out: Path, db: str | None, station: str | None,
-          lot: str | None, operator: str, as_json: bool, recalibrate: bool,
-          cal_time: str | None, jobs: int) -> None:
+          lot: str | None, operator: str, register: Path | None, standards: tuple[str, ...],
+          certificates: bool, as_json: bool, recalibrate: bool, cal_time: str | None,
+          jobs: int) -> None:
     """Calibrate, image and record a lot (exit 0 all passed, 1 some failed, 2 bad input)."""
     from hosttool.commands.batch import batch_json, batch_text
     from hosttool.commands.calibrate import cal_time_option
@@ -275,7 +283,8 @@ def batch(spec: Path, readings: Path, out: Path, db: str | None, station: str | 
 
     summary = run_batch(spec, readings, out=out, db=db, station=station,
                         recalibrate=recalibrate, cal_time=cal_time_option(cal_time),
-                        jobs=jobs, lot=lot, operator=operator,
+                        jobs=jobs, lot=lot, operator=operator, register=register,
+                        lot_standards=standards, certificates=certificates,
                         progress=None if as_json else progress)
     if as_json:
         _emit_json(batch_json(summary, readings=readings.name, out=out))
@@ -344,6 +353,34 @@ def record_show(serial: str, db: str, as_json: bool) -> None:
         _emit_json(rows)
     else:
         click.echo(show_text(rows, serial), nl=False)
+
+
+@record.command("certificate")
+@click.argument("serial")
+@_db_option
+@click.option("-o", "--output", "out", required=True,
+              type=click.Path(dir_okay=False, path_type=Path), help="HTML file to write.")
+@click.option("--revision", "revision", type=click.IntRange(1), help="A revision other than "
+              "the current one.")
+@guarded
+def record_certificate(serial: str, db: str, out: Path, revision: int | None) -> None:
+    """Write the certificate (printable HTML) of one recorded, passed SERIAL."""
+    from hosttool.commands.record import run_certificate
+
+    click.echo(run_certificate(db, serial, revision=revision, out=out), nl=False)
+
+
+@record.command("report")
+@click.argument("lot")
+@_db_option
+@click.option("-o", "--output", "out", required=True,
+              type=click.Path(dir_okay=False, path_type=Path), help="HTML file to write.")
+@guarded
+def record_report(lot: str, db: str, out: Path) -> None:
+    """Write the statistics of LOT (HTML with plots): distributions, Cpk, outliers, yield."""
+    from hosttool.commands.record import run_report
+
+    click.echo(run_report(db, lot, out=out), nl=False)
 
 
 @record.command("export")

@@ -48,7 +48,7 @@ def test_batch_json_then_list_show_export(backend: str, tmp_path: Path,
     assert any("calibration.max_hysteresis" in r for r in units["HV0003"]["reasons"])
     assert units["HV0000"] == {"serial": "HV0000", "verdict": "pass",
                                "image": "HV0000.r1.hex", "revision": 1, "reasons": [],
-                               "recorded_now": True}
+                               "recorded_now": True, "certificate": None}
     assert all((out / u["image"]).is_file() for u in units.values() if u["image"])
 
     listed = json.loads(_tool("record", "list", "--db", db, "--json").stdout)

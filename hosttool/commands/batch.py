@@ -23,6 +23,8 @@ def batch_text(summary: BatchSummary, *, readings: str, out: Path) -> str:
     for o in summary.outcomes:
         if o.status != "pass":
             lines.append(f"  {o.serial}: {o.status.upper()}: {o.reason}")
+    if summary.certificates:
+        lines.append(f"  {len(summary.certificates)} certificates written in {out}")
     lines += [""] + [f"caution: {text}" for text in SAFETY]
     return "\n".join(lines) + "\n"
 
@@ -37,5 +39,6 @@ def batch_json(summary: BatchSummary, *, readings: str, out: Path) -> dict[str, 
                        "failed": counts["fail"], "refused": counts["refused"],
                        "recorded_now": sum(o.new for o in summary.outcomes)},
             "exit_code": summary.exit_code,
-            "units": [o.json() for o in summary.outcomes],
+            "units": [{**o.json(), "certificate": summary.certificates.get(o.serial)}
+                      for o in summary.outcomes],
             "cautions": list(SAFETY)}

@@ -10,7 +10,9 @@ from typing import Any
 
 from hosttool.commands.calibrate import columns
 from hosttool.errors import InputError
-from hosttool.production.record import COLUMNS, JSON_COLUMNS, Filter
+from hosttool.production.certificate import recorded_row, write_certificate
+from hosttool.production.lot_report import CPK_FLOOR, write_lot_report
+from hosttool.production.record import COLUMNS, JSON_COLUMNS, Filter, decode_row
 from hosttool.production.record_open import open_record
 from hosttool.util.atomic import write_atomic
 from hosttool.util.utctime import format_time_utc, parse_time_utc
@@ -41,10 +43,7 @@ def fetch(db: str, which: Filter) -> list[dict[str, Any]]:
         rows = record.select(which)
     finally:
         record.close()
-    for row in rows:
-        for name in JSON_COLUMNS:
-            row[name] = json.loads(row[name])
-    return rows
+    return [decode_row(row) for row in rows]
 
 
 def row_summary(row: dict[str, Any]) -> dict[str, Any]:
@@ -129,3 +128,30 @@ def run_export(db: str, which: Filter, *, fmt: str, out: Path | None) -> str:
         return text
     write_atomic(out, text)
     return f"wrote {out}: {len(rows)} rows ({fmt})\n"
+
+
+def run_certificate(db: str, serial: str, *, revision: int | None, out: Path) -> str:
+    """Write the certificate of one recorded serial; return the line to print."""
+    record = open_record(db)
+    try:
+        row = recorded_row(record, serial, revision)
+    finally:
+        record.close()
+    write_certificate(row, out)
+    return f"wrote {out}: certificate of unit {serial}, revision {row['revision']}\n"
+
+
+def run_report(db: str, lot: str, *, out: Path) -> str:
+    """Write the report of one lot; return the lines to print."""
+    record = open_record(db)
+    try:
+        rows = [decode_row(r) for r in record.select(Filter(lot=lot, current_only=False))]
+        where = record.where
+    finally:
+        record.close()
+    stats = write_lot_report(lot, rows, out, record=where)
+    low = [c.label for c in stats.capability if c.cpk is not None and c.cpk < CPK_FLOOR]
+    lines = [f"wrote {out}: lot {lot}, {stats.units} units, {stats.passed} passed",
+             f"  Cpk below {CPK_FLOOR}: {', '.join(low) or 'none'}",
+             f"  units far from the lot: {len({o.serial for o in stats.outliers})}"]
+    return "\n".join(lines) + "\n"

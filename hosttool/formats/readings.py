@@ -14,6 +14,8 @@ output unit so a file for another product is refused):
     time_utc          optional: when the reading was taken, ISO 8601 in UTC
                       (2025-03-04T08:15:00Z or 2025-03-04T08:15:00+00:00, nothing else:
                       util/utctime.py); the unit's calibration time is its latest one
+    standards         optional: the ids (in the register of reference standards, separated
+                      by spaces) of the standards this reading was taken with
 
 Lines starting with '#' are comments. Every error names the file, line and column.
 """
@@ -43,7 +45,7 @@ SERIAL_RE = re.compile(r"[A-Za-z0-9][A-Za-z0-9._-]{0,15}")
 DIRECTIONS = ("up", "down")
 REQUIRED = ("serial", "temperature_c", "raw_mean_counts", "raw_std_counts", "samples",
             "direction")
-OPTIONAL = ("time_utc",)
+OPTIONAL = ("time_utc", "standards")
 
 
 def reference_column(spec: Spec) -> str:
@@ -65,6 +67,8 @@ class UnitReadings:
     samples: NDArray[np.int64]
     up: NDArray[np.bool_]               # True: direction "up"
     cal_time_utc: int | None            # latest time_utc of its rows, s since 1970 UTC
+    times_utc: NDArray[np.int64] | None = None    # time_utc of each row, when given
+    standards: tuple[tuple[str, ...], ...] = ()   # ids each row names (standards column)
 
     def where(self, index: int) -> str:
         """``file:line`` of reading ``index``."""
@@ -103,7 +107,7 @@ def _columns(header: list[str], spec: Spec, source: str, line: int) -> dict[str,
         if name not in index:
             raise InputError(f"{source}:{line}: {name}: missing column (the header needs "
                              f"{', '.join((REQUIRED[0], ref) + REQUIRED[1:])}; time_utc "
-                             "optional)")
+                             "and standards optional)")
     return index
 
 
@@ -276,7 +280,10 @@ def parse_readings(text: str, spec: Spec, source: str, *, per_unit: bool = False
             reference=cols[rules.ref_name][idx], temperature_c=cols["temperature_c"][idx],
             raw_mean=cols["raw_mean_counts"][idx], raw_std=cols["raw_std_counts"][idx],
             samples=cols["samples"][idx], up=cols["direction"][idx],
-            cal_time_utc=int(cols["time_utc"][idx].max()) if has_time else None)
+            cal_time_utc=int(cols["time_utc"][idx].max()) if has_time else None,
+            times_utc=cols["time_utc"][idx] if has_time else None,
+            standards=tuple(tuple(columns["standards"][i].split()) for i in idx_list)
+            if "standards" in index else ())
     digest = hashlib.sha256(text.encode("utf-8")).hexdigest()
     return ReadingsFile(source=source, sha256=digest, units=units, refused=refused,
                         order=order)

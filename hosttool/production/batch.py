@@ -37,13 +37,13 @@ import re
 import socket
 from collections.abc import Callable, Iterable, Iterator
 from contextlib import contextmanager
-from dataclasses import dataclass
+from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 from pathlib import Path
 
 from hosttool import __version__
 from hosttool.design.cached import cached_design
-from hosttool.errors import HostToolError, OutputError
+from hosttool.errors import HostToolError, InputError, OutputError
 from hosttool.formats.calblock import encode
 from hosttool.formats.caljson import constants_json
 from hosttool.formats.hexfile import block_area, block_image, hex_text
@@ -53,13 +53,16 @@ from hosttool.formats.readings import (
     load_readings,
     unit_cal_time,
 )
+from hosttool.formats.standards import Standard, load_standards
+from hosttool.production.certificate import write_certificates
 from hosttool.production.fit import CalibrationContext, calibrate_unit, point_limits
 from hosttool.production.record import Record
 from hosttool.production.record_open import open_record
+from hosttool.production.traceability import check_lot_standards, unit_standards
 from hosttool.spec.schema import load_spec
 from hosttool.util.atomic import make_folder
 from hosttool.util.atomic_group import write_group
-from hosttool.util.utctime import format_time_utc
+from hosttool.util.utctime import format_time_utc, parse_time_utc
 
 #: Units handed to a worker process at a time (with jobs > 1).
 CHUNK = 64
@@ -86,6 +89,7 @@ class Prepared:
     criteria: str = "[]"          # JSON: the pass/fail table
     points: str = "[]"            # JSON: each reading's firmware output, error and limit
     readings: str = "[]"          # JSON: the unit's readings as read
+    standards: str = "[]"         # JSON: the reference standards used (traceability.py)
 
 
 @dataclass(frozen=True)
@@ -119,6 +123,7 @@ class BatchSummary:
     outcomes: tuple[Outcome, ...]
     lot: str = ""
     record: str = ""              # where the rows went (a URI without its password)
+    certificates: dict[str, str] = field(default_factory=dict)   # serial -> page written
 
     @property
     def exit_code(self) -> int:
@@ -184,6 +189,20 @@ def readings_json(unit: UnitReadings) -> list[dict[str, object]]:
              "raw_std_counts": float(unit.raw_std[i]), "samples": int(unit.samples[i]),
              "direction": "up" if unit.up[i] else "down"}
             for i in range(unit.reference.size)]
+
+
+def _traced(p: Prepared, readings: ReadingsFile, register: dict[str, Standard] | None,
+            lot_ids: tuple[str, ...]) -> Prepared:
+    """The unit with the reference standards its readings used, or refused (unknown
+    standard, or one past its due date when a reading was taken)."""
+    if p.refused:
+        return p
+    try:
+        used = unit_standards(readings.units[p.serial], register, lot_ids,
+                              parse_time_utc(p.cal_time_utc, "cal_time_utc"))
+    except InputError as exc:
+        return refused(p.serial, str(exc))
+    return replace(p, standards=json.dumps(used))
 
 
 # ----------------------------------------------------------------------------- recording
@@ -289,7 +308,7 @@ def _row(st: Station, p: Prepared, revision: int, hex_file: str | None) -> dict[
         "figures": p.figures, "verdict": p.verdict, "reasons": json.dumps(list(p.reasons)),
         "hex_file": hex_file, "hex_sha256": None if p.image is None else _sha256(p.image),
         "lot": st.lot, "operator": st.operator, "tool_version": __version__,
-        "readings": p.readings, "standards": "[]", "criteria": p.criteria,
+        "readings": p.readings, "standards": p.standards, "criteria": p.criteria,
         "points": p.points,
     }
 
@@ -369,7 +388,8 @@ def _preparer(ctx: CalibrationContext, override: int | None, jobs: int, count: i
 
 def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: str | Path | None,
               station: str | None, recalibrate: bool, cal_time: int | None, jobs: int = 1,
-              lot: str | None = None, operator: str = "",
+              lot: str | None = None, operator: str = "", register: Path | None = None,
+              lot_standards: tuple[str, ...] = (), certificates: bool = False,
               progress: Callable[[Iterable[Prepared], int], Iterable[Prepared]] | None = None
               ) -> BatchSummary:
     """Calibrate, image and record every unit of a readings file."""
@@ -377,6 +397,8 @@ def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: str | Path
     ctx = CalibrationContext.of(design)
     block_area(design)
     readings = load_readings(readings_path, design.spec, per_unit=True)
+    standards = load_standards(register) if register is not None else None
+    check_lot_standards(lot_standards, standards, str(register))
     make_folder(out)
     units: list[UnitReadings | RefusedUnit] = [
         readings.units[s] if s in readings.units else (s, readings.refused[s])
@@ -390,11 +412,15 @@ def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: str | Path
                      readings_name=readings_path.name)
         try:
             clear_temporaries(st)
-            stream: Iterable[Prepared] = prepared(units)
+            stream: Iterable[Prepared] = (_traced(p, readings, standards, lot_standards)
+                                           for p in prepared(units))
             if progress is not None:
                 stream = progress(stream, len(units))
             outcomes = tuple(o for group in _groups(stream, GROUP)
                              for o in commit_group(st, group))
+            pages = write_certificates(record, out, [(o.serial, o.revision) for o in outcomes
+                                                     if o.status == "pass"]) \
+                if certificates else {}
         finally:
             record.close()
-    return BatchSummary(design.spec.name, outcomes, st.lot, record.where)
+    return BatchSummary(design.spec.name, outcomes, st.lot, record.where, pages)

@@ -29,6 +29,7 @@ migrated by adding those columns, empty for the old rows.
 
 from __future__ import annotations
 
+import json
 import re
 from collections.abc import Iterator, Sequence
 from contextlib import AbstractContextManager
@@ -191,6 +192,13 @@ def is_server(where: str | Path) -> bool:
 def shown(where: str | Path) -> str:
     """``where`` for messages: a URI without its password."""
     return re.sub(r"(://[^:/@]+):[^@]*@", r"\1:***@", str(where))
+
+
+def decode_row(row: dict[str, Any]) -> dict[str, Any]:
+    """The row with its JSON columns decoded (in place; returned for convenience)."""
+    for name in JSON_COLUMNS:
+        row[name] = json.loads(row[name])
+    return row
 
 
 def iter_statements(script: str) -> Iterator[str]:
