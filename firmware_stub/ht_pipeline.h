@@ -3,10 +3,14 @@
  *
  * Follows the arithmetic contract of DEVELOPERS.md step by step: offset, the filter
  * cascade (FIR with decimation, biquads with error feedback), scale, linearisation,
- * temperature. It is generic over the design: every constant, and the cascade itself
- * (an X-macro list), comes from the header `hosttool render` generates, so this code
- * compiles unchanged for any spec. No allocation, no floating point, no globals: all
- * mutable data is in one ht_pipeline_t the caller owns.
+ * temperature. The steps themselves come from the header `hosttool render` generates,
+ * specialised for the design by what its range proofs allow (see the header's "Steps"
+ * section); this file and ht_pipeline.c compile unchanged for any spec. No allocation, no
+ * floating point, no globals: all mutable data is in one ht_pipeline_t the caller owns.
+ *
+ * The constants in ht_pipeline_t must stay within the limits the design header states
+ * (OFFSET_LIMIT, SCALE_MUL_LIMIT, sum |C_k| < 2^32, no coefficient at -2^31): the steps are
+ * proven for those and no others. ht_calblock_load() enforces them.
  *
  * Configuration macros (on the compiler command line):
  *   HT_DESIGN_HEADER  the generated design header as a string literal,
@@ -76,7 +80,7 @@ typedef uint32_t ht_status_t;
 #define HT_STATUS_SATURATED 0x08u
 
 /* The header format this firmware is written for. */
-#define HT_DESIGN_FORMAT_EXPECTED 1
+#define HT_DESIGN_FORMAT_EXPECTED 2
 #if HT_D(DESIGN_HEADER_FORMAT) != HT_DESIGN_FORMAT_EXPECTED
 #error "the design header's format is not the one ht_pipeline.c was written for: render it again with a matching hosttool"
 #endif
@@ -97,30 +101,12 @@ typedef struct {
     int32_t tc_span;          /* Ks, Q30 gain per 0.01 C (shift TC_SPAN_SHIFT) */
 } ht_constants_t;
 
-/*
- * State of one FIR stage: the last `length` inputs stored twice (line[pos + k] is
- * x[n - k] for k < length, without wrapping), and the decimation phase.
- */
-#define HT_FIR_STATE(stage, taps, length, frac, decimation) \
-    struct {                                                \
-        int32_t line[2u * (length)];                        \
-        uint32_t pos;                                       \
-        uint32_t phase;                                     \
-    } fir##stage;
-
-/* State of one biquad section: previous inputs and outputs, error feedback. */
-#define HT_BIQUAD_STATE(stage, section, b0, b1, b2, a1, a2, q) \
-    struct {                                                   \
-        int32_t x1, x2, y1, y2;                                \
-        int64_t e;                                             \
-    } biquad##stage##_##section;
-
 /* All mutable data of one pipeline. */
 typedef struct {
     ht_constants_t constants;
     bool calibrated;          /* constants from a valid calibration block */
     ht_status_t pending;      /* flags of the inputs since the last output */
-    HT_D(CASCADE)(HT_FIR_STATE, HT_BIQUAD_STATE)
+    HT_D(filters_t) filters;  /* every filter stage's state (the design header's steps) */
 } ht_pipeline_t;
 
 /* The compiled-in default constants (the design header's *_DEFAULT values). */

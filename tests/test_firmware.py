@@ -190,6 +190,49 @@ def test_host_worst_case_reaches_the_proven_bound(name: str, side: int,
     assert np.array_equal(got.output, model.output)
 
 
+def edge_units(d: Design) -> list[UnitConstants]:
+    """Constants at the edges of what the calibration loader accepts, both signs: offset at
+    the ADC range, the span multiplier at its limit, linearisation coefficients summing to
+    2^32 - 1 in magnitude (each below 2^31), both temperature coefficients at 2^31 - 1."""
+    limit = 1 << (d.spec.adc.bits - 1 + d.guard_bits)
+    top = (1 << 31) - 1
+    units = []
+    for sign in (1, -1):
+        lin: tuple[int, ...] = ()
+        if d.linearisation is not None:
+            n = len(d.nominal.lin)
+            ones = [0] + [1] * (n - 3) if n >= 3 else []
+            lin = tuple(ones + [-sign * top, sign * top])[-n:]
+        unit = UnitConstants(offset=-sign * limit, scale_mul=sign * d.scale.multiplier_limit,
+                             lin=lin, tc_zero=sign * top if d.temperature else 0,
+                             tc_span=sign * top if d.temperature else 0)
+        d.check_unit(unit, "test")
+        units.append(unit)
+    return units
+
+
+@pytest.mark.parametrize("name", sorted(DESIGNS))
+def test_host_constants_at_the_loader_edges(name: str, host_runners: dict[str, Built]) -> None:
+    # The steps leave out saturations and keep 32-bit words by ranges proven for every
+    # constant the loader accepts: at its edges, with the worst pattern and the clamped
+    # temperature extremes, the firmware still equals the model (and the sanitizer build
+    # finds no signed overflow).
+    d = DESIGNS[name]
+    pattern = worst_pattern(d)
+    codes = np.concatenate([pattern, -pattern - (pattern < 0), vectors(d, 10)["extremes"][0]])
+    temps = None
+    if d.temperature is not None:
+        t = d.temperature
+        temps = np.resize(np.array([t.min_centi - 3000, t.max_centi + 3000, t.min_centi,
+                                    t.max_centi]), codes.size)
+    for unit in edge_units(d):
+        got = host_runners[name](codes, temps, block(d, unit))
+        assert "calblock ok, calibrated 1" in got.stderr
+        model = run_integer(d.with_constants(unit), codes, temps)
+        assert np.array_equal(got.output, model.output)
+        assert np.array_equal(got.status, model.status(calibrated=True))
+
+
 def _rejected(d: Design, other: Design) -> dict[str, tuple[bytes, str]]:
     """Damaged or foreign blocks and the status the C loader must report."""
     good = block(d, unit_constants(d))
@@ -319,7 +362,7 @@ def test_firmware_builds_with_conversion_warnings(name: str, tmp_path: Path) -> 
 
 
 @pytest.mark.parametrize("macro, message", [
-    ("DESIGN_HEADER_FORMAT 1", "design header's format"),
+    ("DESIGN_HEADER_FORMAT 2", "design header's format"),
     ("CALBLOCK_SPEC_ID 0x", "rendered from different specs"),
 ])
 def test_stale_or_mixed_headers_fail_the_build(macro: str, message: str,
@@ -331,7 +374,7 @@ def test_stale_or_mixed_headers_fail_the_build(macro: str, message: str,
         text = path.read_text()
         name = f"#define HIVE_SCALE_{macro}"
         if name in text:
-            path.write_text(text.replace(name, name.replace(" 1", " 2").replace("0x", "0x1"), 1))
+            path.write_text(text.replace(name, name.replace(" 2", " 3").replace("0x", "0x1"), 1))
     with pytest.raises(cbuild.BuildFailed, match=re.escape(message)):
         cbuild.build(HT_RUNNER, "host", tmp_path, include_dirs=[gen],
                      defines=firmware_defines(d))
@@ -375,6 +418,11 @@ def test_cortex_m_bit_exact(name: str, target_runners: dict[str, Built]) -> None
         assert np.array_equal(got.status, model.status(calibrated=False)), label
         per_sample = got.instructions_per_sample
         assert per_sample is not None and per_sample > 0
+    for edge in edge_units(d):
+        codes, temps = vectors(d, long_run=10, seed=5)["worst"]
+        got = target_runners[name](codes, temps, block(d, edge))
+        assert np.array_equal(got.output, run_integer(d.with_constants(edge), codes,
+                                                      temps).output)
     codes, temps = vectors(d, long_run=20_000, seed=3)["long"]
     got = target_runners[name](codes, temps, block(d, unit))
     assert "calblock ok, calibrated 1" in got.stderr

@@ -23,7 +23,7 @@ import pytest
 from conftest import require_tools
 
 from hosttool import __version__
-from hosttool.codegen.render import HEADER_FORMAT, firmware_defines, render_headers
+from hosttool.codegen.render import DESIGN_HEADER_FORMAT, firmware_defines, render_headers
 from hosttool.design.model import run_integer
 from hosttool.design.resolve import make_design
 from hosttool.firmware import build as cbuild
@@ -86,7 +86,7 @@ def test_current_firmware_builds_and_runs_with_kept_headers(name: str, kept: Pat
     require_tools("host", run=True)
     design = make_design(load_spec(EXAMPLES / f"{name}.toml"))
     header = kept / f"{name}_design.h"
-    if _header_format(header) != HEADER_FORMAT:
+    if _header_format(header) != DESIGN_HEADER_FORMAT:
         with pytest.raises(cbuild.BuildFailed) as refused:
             cbuild.build(HT_RUNNER, "host", tmp_path, include_dirs=[kept],
                          defines=firmware_defines(design))
@@ -121,7 +121,7 @@ def test_firmware_refuses_a_header_of_another_format(tmp_path: Path) -> None:
         text = header.read_text()
         if header.name.endswith("_design.h"):
             text, n = re.subn(r"^(#define HIVE_SCALE_DESIGN_HEADER_FORMAT) \d+$",
-                              rf"\g<1> {HEADER_FORMAT + 1}", text, flags=re.M)
+                              rf"\g<1> {DESIGN_HEADER_FORMAT + 1}", text, flags=re.M)
             assert n == 1
         (kept / header.name).write_text(text)
     with pytest.raises(cbuild.BuildFailed) as refused:

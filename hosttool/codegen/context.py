@@ -12,6 +12,7 @@ from dataclasses import dataclass
 from fractions import Fraction
 from typing import Any
 
+from hosttool.codegen.steps import steps_context
 from hosttool.design.filters import BiquadStage, FirStage
 from hosttool.design.fixedpoint import INT32_MAX, INT32_MIN, QFormat
 from hosttool.design.identity import IDENTITY_TAG
@@ -183,6 +184,7 @@ def design_context(d: Design) -> dict[str, Any]:
         "lin_frac": LIN_FRAC,
         "output": output_context(d),
         "proof": proof_context(d),
+        "steps": steps_context(d),
         "resolution": d.spec.output.resolution, "unit": d.spec.sensor.unit,
         "warnings": d.warnings,
     }

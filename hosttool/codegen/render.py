@@ -31,8 +31,11 @@ from hosttool.formats.calblock import format_identity
 from hosttool.util.atomic import make_folder, write_atomic
 from hosttool.util.resources import templates
 
-#: Version of the generated headers' format; the firmware #errors on any other.
+#: Version of the calibration-block header's format; the firmware #errors on any other.
 HEADER_FORMAT = 1
+#: Version of the design header's format (2: the specialised steps); the firmware #errors on
+#: any other.
+DESIGN_HEADER_FORMAT = 2
 
 _BODY_HASH = re.compile(r"^ \* body sha256 ([0-9a-f]{64})$", re.M)
 _BANNER_END = "\n */\n"
@@ -88,7 +91,8 @@ def render_headers(design: Design, *, constants_note: str | None = None
               "calblock_header": calblock_name, "design_header": design_name,
               "constants_note": constants_note}
     bodies = (
-        (design_name, "design.h.j2", design_context(design) | {"guard": f"{prefix}_DESIGN_H"},
+        (design_name, "design.h.j2", design_context(design)
+         | {"guard": f"{prefix}_DESIGN_H", "format": DESIGN_HEADER_FORMAT},
          "fixed-point design"),
         (calblock_name, "calblock.h.j2",
          calblock_context(design) | {"guard": f"{prefix}_CALBLOCK_H"}, "calibration block"),

@@ -29,6 +29,9 @@ from hosttool.spec.schema import Spec
 
 #: Q format of the normalised linearisation variable and coefficients, and of the span gain.
 LIN_FRAC = 30
+#: sum |C_k| of a unit's linearisation coefficients stays below this (Q1.30 words of a
+#: polynomial whose value over |w| <= 1 stays below 4).
+LIN_SUM_LIMIT = 4 << LIN_FRAC
 #: Default widths of the per-unit temperature-coefficient formats when the spec gives no
 #: limit: this many ppm (of full scale per C for zero, per C for span).
 DEFAULT_TC_RANGE_PPM = 500.0
@@ -327,7 +330,7 @@ def check_constants(c: UnitConstants, *, bits: int, g: int, scale: Scale,
     if len(c.lin) != (len(lin.coeffs) if lin is not None else 0):
         raise DesignError(f"{source}: {len(c.lin)} linearisation coefficients given, the "
                           f"design has {len(lin.coeffs) if lin is not None else 'none'}")
-    if lin is not None and (sum(abs(x) for x in c.lin) >= 4 << LIN_FRAC
+    if lin is not None and (sum(abs(x) for x in c.lin) >= LIN_SUM_LIMIT
                             or max(abs(x) for x in c.lin) > INT32_MAX):
         raise DesignError(f"{source}: linearisation coefficients too large for Q1.{LIN_FRAC}")
     if temp is None and (c.tc_zero or c.tc_span):

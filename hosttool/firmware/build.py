@@ -131,19 +131,22 @@ def _copy_tree(src: Traversable, dst: Path) -> None:
 
 def build(program: Program, kind: str, build_dir: Path, *,
           include_dirs: Sequence[Path] = (), defines: Sequence[str] = (),
-          shared: bool = False) -> Path:
+          shared: bool = False, extra_sources: Sequence[Path] = ()) -> Path:
     """Build ``program`` for ``kind`` under ``build_dir`` and return the executable's path.
 
     ``shared`` (host kinds): a shared library ``lib<name>.so`` instead, for ctypes.
 
     ``include_dirs`` (generated headers, for instance) go on the include path after the
-    firmware folder; ``defines`` (``NAME=VALUE``) become ``-D`` options. The executable is
-    ``build_dir/<kind>/<name>`` (``.elf`` for targets).
+    firmware folder; ``defines`` (``NAME=VALUE``) become ``-D`` options; ``extra_sources``
+    are copied beside the firmware sources (a program's own file from outside the package).
+    The executable is ``build_dir/<kind>/<name>`` (``.elf`` for targets).
     """
     spec = _kind(kind)
     compiler = _find_tool(spec.compiler, kind)
     src = build_dir / "src"
     _copy_tree(firmware_sources(), src)
+    for extra in extra_sources:
+        shutil.copy(extra, src / extra.name)
     out_dir = build_dir / kind
     out_dir.mkdir(parents=True, exist_ok=True)
     out = out_dir / (program.name + (".elf" if spec.target else ""))

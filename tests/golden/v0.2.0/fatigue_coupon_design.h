@@ -7,7 +7,7 @@
  * longer matches the body hash below, unless forced.
  * spec fatigue_coupon, sha256 15269441c7dbbf5240af85f6bae321748c97d9ee4785454364c4ce68d4b85161
  * defaults: nominal constants of the spec
- * body sha256 442e50953a97257cac78f80e1f34ddcd4e1954947c573e132668293f99cb28de
+ * body sha256 6dc17408be55d9c76cd5167206a07c0ae13644b6abd42ebd76a665efc810bd2f
  */
 #ifndef FATIGUE_COUPON_DESIGN_H
 #define FATIGUE_COUPON_DESIGN_H
@@ -22,7 +22,7 @@
 #include <stdint.h>
 
 /* Format of this header; the reference firmware refuses (#error) any other. */
-#define FATIGUE_COUPON_DESIGN_HEADER_FORMAT 1
+#define FATIGUE_COUPON_DESIGN_HEADER_FORMAT 2
 /* First 32 bits of the spec's SHA-256; the calibration-block header carries the same. */
 #define FATIGUE_COUPON_DESIGN_SPEC_ID 0x15269441u
 /* The sibling header with the calibration block of this spec. */
@@ -294,5 +294,245 @@ static const int32_t FATIGUE_COUPON_LIN_DEFAULT[FATIGUE_COUPON_LIN_COUNT] = {
  *   total, proven              1.139 LSB = 0.1139 ue
  * Against the ideal (unquantised) design: 1.147 LSB.
  */
+/*
+ * ---- Steps: the arithmetic contract, specialised by exact ranges -------------------------
+ * The reference firmware (ht_pipeline.c) runs these functions in order. Each computes the
+ * integers of the contract above, bit for bit, leaving out what its ranges prove useless:
+ * a saturation whose input cannot leave int32, 64-bit words where 32 bits hold every value,
+ * 64 x 64 products where both operands are 32-bit. A range [lo, hi] is exact over every code
+ * of the ADC range (ht_process takes a code beyond it as the rail) and every constant the
+ * calibration loader accepts (|offset| <= OFFSET_LIMIT, |M| <= SCALE_MUL_LIMIT, sum |C_k| <
+ * 2^32 with each |C_k| < 2^31, |Kz|, |Ks| < 2^31); a biquad's output range is its proven
+ * bound (the proofs above). No constant of ht_pipeline_t may lie outside those limits.
+ */
+
+/* Storage class of the steps (a build may define it, to measure each step apart). */
+#ifndef FATIGUE_COUPON_STEP
+#define FATIGUE_COUPON_STEP static inline
+#endif
+
+/* Hides a constant from gcc, which expands a 64-bit product by a constant into shifts. */
+#if defined(__GNUC__)
+#define FATIGUE_COUPON_OPAQUE(x) __asm__("" : "+r"(x))
+#else
+#define FATIGUE_COUPON_OPAQUE(x) ((void)0)
+#endif
+
+/*
+ * Step 1, offset. code [-8388608, 8388607], code x 2^G [-268435456, 268435424],
+ * d [-536870912, 536870880]: int32, so 32-bit arithmetic and no saturation.
+ */
+FATIGUE_COUPON_STEP int32_t FATIGUE_COUPON_offset(int32_t code, int32_t offset)
+{
+    return code * 32 - offset;
+}
+
+/* The state of every filter stage; FATIGUE_COUPON_filters_reset() puts it at rest. */
+typedef struct {
+    struct {
+        int32_t line[186]; /* the last 93 inputs twice: x[n-k] = line[pos + k] */
+        uint32_t pos;
+        uint32_t phase;          /* inputs since the last output */
+    } stage1;
+    struct {
+        int32_t x1, x2, y1, y2;
+        uint32_t e;              /* error feedback plus 2^29, in [0, 2^30) */
+    } stage2_sec1;
+    struct {
+        int32_t x1, x2, y1, y2;
+        uint32_t e;              /* error feedback plus 2^29, in [0, 2^30) */
+    } stage3_sec1;
+} FATIGUE_COUPON_filters_t;
+
+/* Every filter at rest: zero inputs and outputs, zero error feedback. */
+FATIGUE_COUPON_STEP void FATIGUE_COUPON_filters_reset(FATIGUE_COUPON_filters_t *f)
+{
+    {
+        uint32_t k;
+        for (k = 0u; k < 186u; ++k) {
+            f->stage1.line[k] = 0;
+        }
+    }
+    f->stage1.pos = 0u;
+    f->stage1.phase = 0u;
+    f->stage2_sec1.x1 = 0;
+    f->stage2_sec1.x2 = 0;
+    f->stage2_sec1.y1 = 0;
+    f->stage2_sec1.y2 = 0;
+    f->stage2_sec1.e = 536870912u;
+    f->stage3_sec1.x1 = 0;
+    f->stage3_sec1.x2 = 0;
+    f->stage3_sec1.y1 = 0;
+    f->stage3_sec1.y2 = 0;
+    f->stage3_sec1.e = 536870912u;
+}
+
+/*
+ * Stage 1, fir_lowpass FIR of 93 taps, decimation 4.
+ * Folded: acc = 2^30 + sum over k < 46 of h[k] (x[n-k] + x[n-92+k]) + h[46] x[n-46],
+ * written out with each tap a constant; x [-536870912, 536870880], each pair sum [-1073741824, 1073741760] (int32),
+ * acc [-1772492580763447168, 1772492514191454080] (int64), y = acc >> 31 in [-825381177, 825381145]: int32, no saturation.
+ * Returns 1 when *v holds a new output, 0 while the stage waits for inputs.
+ */
+FATIGUE_COUPON_STEP int FATIGUE_COUPON_stage1(FATIGUE_COUPON_filters_t *f, int32_t *v)
+{
+    uint32_t at = f->stage1.pos == 0u ? 92u : f->stage1.pos - 1u;
+    int32_t *line = f->stage1.line;
+    int32_t x = *v;
+    int64_t acc = INT64_C(1073741824);
+    const int32_t *a;
+    const int32_t *z;
+
+    line[at] = x;
+    line[at + 93u] = x;
+    f->stage1.pos = at;
+    if (++f->stage1.phase < 4u) {
+        return 0;
+    }
+    f->stage1.phase = 0u;
+    a = &line[at];
+    z = &line[at + 92u];
+    acc += (int64_t)(-302228) * (a[0] + z[0]);
+    acc += (int64_t)(-404593) * (a[1] + z[-1]);
+    acc += (int64_t)(-440124) * (a[2] + z[-2]);
+    acc += (int64_t)(-357796) * (a[3] + z[-3]);
+    acc += (int64_t)(-118126) * (a[4] + z[-4]);
+    acc += (int64_t)291807 * (a[5] + z[-5]);
+    acc += (int64_t)845383 * (a[6] + z[-6]);
+    acc += (int64_t)1469286 * (a[7] + z[-7]);
+    acc += (int64_t)2045522 * (a[8] + z[-8]);
+    acc += (int64_t)2424606 * (a[9] + z[-9]);
+    acc += (int64_t)2449851 * (a[10] + z[-10]);
+    acc += (int64_t)1990154 * (a[11] + z[-11]);
+    acc += (int64_t)976183 * (a[12] + z[-12]);
+    acc += (int64_t)(-567033) * (a[13] + z[-13]);
+    acc += (int64_t)(-2498927) * (a[14] + z[-14]);
+    acc += (int64_t)(-4560746) * (a[15] + z[-15]);
+    acc += (int64_t)(-6396267) * (a[16] + z[-16]);
+    acc += (int64_t)(-7596975) * (a[17] + z[-17]);
+    acc += (int64_t)(-7768136) * (a[18] + z[-18]);
+    acc += (int64_t)(-6607402) * (a[19] + z[-19]);
+    acc += (int64_t)(-3983468) * (a[20] + z[-20]);
+    acc += (int64_t)0 * (a[21] + z[-21]);
+    acc += (int64_t)4970032 * (a[22] + z[-22]);
+    acc += (int64_t)10291623 * (a[23] + z[-23]);
+    acc += (int64_t)15123249 * (a[24] + z[-24]);
+    acc += (int64_t)18519760 * (a[25] + z[-25]);
+    acc += (int64_t)19573352 * (a[26] + z[-26]);
+    acc += (int64_t)17575303 * (a[27] + z[-27]);
+    acc += (int64_t)12174968 * (a[28] + z[-28]);
+    acc += (int64_t)3509617 * (a[29] + z[-29]);
+    acc += (int64_t)(-7720206) * (a[30] + z[-30]);
+    acc += (int64_t)(-20249657) * (a[31] + z[-31]);
+    acc += (int64_t)(-32333380) * (a[32] + z[-32]);
+    acc += (int64_t)(-41912495) * (a[33] + z[-33]);
+    acc += (int64_t)(-46850111) * (a[34] + z[-34]);
+    acc += (int64_t)(-45208616) * (a[35] + z[-35]);
+    acc += (int64_t)(-35533083) * (a[36] + z[-36]);
+    acc += (int64_t)(-17100905) * (a[37] + z[-37]);
+    acc += (int64_t)9900582 * (a[38] + z[-38]);
+    acc += (int64_t)44299258 * (a[39] + z[-39]);
+    acc += (int64_t)83984247 * (a[40] + z[-40]);
+    acc += (int64_t)126074835 * (a[41] + z[-41]);
+    acc += (int64_t)167197011 * (a[42] + z[-42]);
+    acc += (int64_t)203836585 * (a[43] + z[-43]);
+    acc += (int64_t)232725833 * (a[44] + z[-44]);
+    acc += (int64_t)251214537 * (a[45] + z[-45]);
+    acc += (int64_t)257577028 * a[46];
+    *v = (int32_t)(acc >> 31);
+    return 1;
+}
+
+/*
+ * Stage 2, section 1, direct form I with error feedback. a1 and a2 enter negated
+ * (624329462, -946630755), so every term is a multiply-accumulate; the feedback is kept as
+ * e + 2^29 in [0, 2^30), which carries the rounding constant: y = acc >> 30 and the
+ * new e + 2^29 = acc mod 2^30 (uint32). x [-825381177, 825381145], y [-1162612449, 1162612449] (proven bound):
+ * int32, no saturation; acc fits int64 (its proof above).
+ */
+FATIGUE_COUPON_STEP int32_t FATIGUE_COUPON_stage2_sec1(FATIGUE_COUPON_filters_t *f, int32_t x)
+{
+    int64_t acc = f->stage2_sec1.e;
+    int32_t y;
+
+    acc += (int64_t)1010186290 * x;
+    acc += (int64_t)(-624329463) * f->stage2_sec1.x1;
+    acc += (int64_t)1010186290 * f->stage2_sec1.x2;
+    acc += (int64_t)624329462 * f->stage2_sec1.y1;
+    acc += (int64_t)(-946630755) * f->stage2_sec1.y2;
+    y = (int32_t)(acc >> 30);
+    f->stage2_sec1.e = (uint32_t)((uint64_t)acc & 0x3FFFFFFFu);
+    f->stage2_sec1.x2 = f->stage2_sec1.x1;
+    f->stage2_sec1.x1 = x;
+    f->stage2_sec1.y2 = f->stage2_sec1.y1;
+    f->stage2_sec1.y1 = y;
+    return y;
+}
+
+/*
+ * Stage 3, section 1, direct form I with error feedback. a1 and a2 enter negated
+ * (125370916, -922911764), so every term is a multiply-accumulate; the feedback is kept as
+ * e + 2^29 in [0, 2^30), which carries the rounding constant: y = acc >> 30 and the
+ * new e + 2^29 = acc mod 2^30 (uint32). x [-1162612449, 1162612449], y [-1159825577, 1159825577] (proven bound):
+ * int32, no saturation; acc fits int64 (its proof above).
+ */
+FATIGUE_COUPON_STEP int32_t FATIGUE_COUPON_stage3_sec1(FATIGUE_COUPON_filters_t *f, int32_t x)
+{
+    int64_t acc = f->stage3_sec1.e;
+    int32_t y;
+
+    acc += (int64_t)998326794 * x;
+    acc += (int64_t)(-125370916) * f->stage3_sec1.x1;
+    acc += (int64_t)998326794 * f->stage3_sec1.x2;
+    acc += (int64_t)125370916 * f->stage3_sec1.y1;
+    acc += (int64_t)(-922911764) * f->stage3_sec1.y2;
+    y = (int32_t)(acc >> 30);
+    f->stage3_sec1.e = (uint32_t)((uint64_t)acc & 0x3FFFFFFFu);
+    f->stage3_sec1.x2 = f->stage3_sec1.x1;
+    f->stage3_sec1.x1 = x;
+    f->stage3_sec1.y2 = f->stage3_sec1.y1;
+    f->stage3_sec1.y1 = y;
+    return y;
+}
+
+/* Step 2, the cascade in order on chain word *v; 1 when *v holds a new output. */
+FATIGUE_COUPON_STEP int FATIGUE_COUPON_filters(FATIGUE_COUPON_filters_t *f, int32_t *v)
+{
+    if (!FATIGUE_COUPON_stage1(f, v)) {
+        return 0;
+    }
+    *v = FATIGUE_COUPON_stage2_sec1(f, *v);
+    *v = FATIGUE_COUPON_stage3_sec1(f, *v);
+    return 1;
+}
+
+/*
+ * Step 3, scale. v [-1159825577, 1159825577], |M| <= 1288533333: v M + 2^40 is a 32 x 32 -> 64
+ * product in [-1494473916430458141, 1494473916430458141]; s [-679608, 679608]: int32, no saturation.
+ */
+FATIGUE_COUPON_STEP int32_t FATIGUE_COUPON_scale(int32_t v, int32_t m, int *clamped)
+{
+    (void)clamped;
+    return (int32_t)((((int64_t)v * m) + INT64_C(1099511627776)) >> 41);
+}
+
+/*
+ * Step 4, linearisation. s [-679608, 679608] within +-2^20, so w = s 2^10 in [-695918592, 695918592]
+ * (int32, |w| <= 2^30). Horner: acc = C_3 (int32), then acc = round_shift(acc w, 30) + C_k,
+ * where |round_shift(acc w, 30)| <= |acc|, so |acc| <= sum |C_j| < 2^32: the first product
+ * is 32 x 32 -> 64, later ones 64 x 32 (|acc w| < 2^62). acc [-4294967295, 4294967295], result [-4194304, 4194304]:
+ * int32, no saturation.
+ */
+FATIGUE_COUPON_STEP int32_t FATIGUE_COUPON_linearise(int32_t s, const int32_t *c, int *clamped)
+{
+    int32_t w = s * 1024;
+    int64_t acc = c[3];
+
+    (void)clamped;
+    acc = ((((int64_t)(int32_t)acc * w) + INT64_C(536870912)) >> 30) + c[2];
+    acc = (((acc * w) + INT64_C(536870912)) >> 30) + c[1];
+    acc = (((acc * w) + INT64_C(536870912)) >> 30) + c[0];
+    return (int32_t)(((acc) + INT64_C(512)) >> 10);
+}
 
 #endif /* FATIGUE_COUPON_DESIGN_H */

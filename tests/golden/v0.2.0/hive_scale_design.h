@@ -7,7 +7,7 @@
  * longer matches the body hash below, unless forced.
  * spec hive_scale, sha256 af63af9f9a479d259c4132deb379d117c3899eab541910a08258164c5168dfa6
  * defaults: nominal constants of the spec
- * body sha256 25f264411078222b22b0d53ca2303820675d0d69dbb61385f749b4eae12e7e9b
+ * body sha256 f0c792dfecbb2eee39e6388415c868fa3aed6138181c028be02bcd851397148f
  */
 #ifndef HIVE_SCALE_DESIGN_H
 #define HIVE_SCALE_DESIGN_H
@@ -22,7 +22,7 @@
 #include <stdint.h>
 
 /* Format of this header; the reference firmware refuses (#error) any other. */
-#define HIVE_SCALE_DESIGN_HEADER_FORMAT 1
+#define HIVE_SCALE_DESIGN_HEADER_FORMAT 2
 /* First 32 bits of the spec's SHA-256; the calibration-block header carries the same. */
 #define HIVE_SCALE_DESIGN_SPEC_ID 0xAF63AF9Fu
 /* The sibling header with the calibration block of this spec. */
@@ -176,5 +176,162 @@ static const int32_t HIVE_SCALE_STAGE1_TAPS[HIVE_SCALE_STAGE1_LENGTH] = {
  *   total, proven              0.500 LSB = 0.00500 kg
  * Against the ideal (unquantised) design: 0.501 LSB.
  */
+/*
+ * ---- Steps: the arithmetic contract, specialised by exact ranges -------------------------
+ * The reference firmware (ht_pipeline.c) runs these functions in order. Each computes the
+ * integers of the contract above, bit for bit, leaving out what its ranges prove useless:
+ * a saturation whose input cannot leave int32, 64-bit words where 32 bits hold every value,
+ * 64 x 64 products where both operands are 32-bit. A range [lo, hi] is exact over every code
+ * of the ADC range (ht_process takes a code beyond it as the rail) and every constant the
+ * calibration loader accepts (|offset| <= OFFSET_LIMIT, |M| <= SCALE_MUL_LIMIT, sum |C_k| <
+ * 2^32 with each |C_k| < 2^31, |Kz|, |Ks| < 2^31); a biquad's output range is its proven
+ * bound (the proofs above). No constant of ht_pipeline_t may lie outside those limits.
+ */
+
+/* Storage class of the steps (a build may define it, to measure each step apart). */
+#ifndef HIVE_SCALE_STEP
+#define HIVE_SCALE_STEP static inline
+#endif
+
+/* Hides a constant from gcc, which expands a 64-bit product by a constant into shifts. */
+#if defined(__GNUC__)
+#define HIVE_SCALE_OPAQUE(x) __asm__("" : "+r"(x))
+#else
+#define HIVE_SCALE_OPAQUE(x) ((void)0)
+#endif
+
+/*
+ * Step 1, offset. code [-8388608, 8388607], code x 2^G [-536870912, 536870848],
+ * d [-1073741824, 1073741760]: int32, so 32-bit arithmetic and no saturation.
+ */
+HIVE_SCALE_STEP int32_t HIVE_SCALE_offset(int32_t code, int32_t offset)
+{
+    return code * 64 - offset;
+}
+
+/* The state of every filter stage; HIVE_SCALE_filters_reset() puts it at rest. */
+typedef struct {
+    struct {
+        int32_t ring[5];           /* the last 5 inputs; ring[head] is the oldest */
+        uint32_t head;
+        int64_t csum;            /* 858993459 x (their sum) + 2^31, [-4611686015206162432, 4611685744623222848] */
+    } stage1;
+    struct {
+        int32_t x1, x2, y1, y2;
+        uint32_t e;              /* error feedback plus 2^29, in [0, 2^30) */
+    } stage2_sec1;
+} HIVE_SCALE_filters_t;
+
+/* Every filter at rest: zero inputs and outputs, zero error feedback. */
+HIVE_SCALE_STEP void HIVE_SCALE_filters_reset(HIVE_SCALE_filters_t *f)
+{
+    {
+        uint32_t k;
+        for (k = 0u; k < 5u; ++k) {
+            f->stage1.ring[k] = 0;
+        }
+    }
+    f->stage1.head = 0u;
+    f->stage1.csum = INT64_C(2147483648);
+    f->stage2_sec1.x1 = 0;
+    f->stage2_sec1.x2 = 0;
+    f->stage2_sec1.y1 = 0;
+    f->stage2_sec1.y2 = 0;
+    f->stage2_sec1.e = 536870912u;
+}
+
+/*
+ * Stage 1, moving_average FIR of 5 taps, as a running sum. Every tap is
+ * c = 858993459, h[2] differs by 1, so acc = c S + (1) x[n-2] + 2^31
+ * with S the sum of the last 5 inputs; csum = c S + 2^31 is kept up to date by one
+ * 32 x 32 -> 64 multiply-accumulate, c (x[n] - x[n-5]). x [-1073741824, 1073741760], x[n] - x[n-5]
+ * [-2147483584, 2147483584] (int32), S [-5368709120, 5368708800], csum [-4611686015206162432, 4611685744623222848] (int64), acc [-4611686016279904256, 4611685745696964608],
+ * y = acc >> 32 in [-1073741824, 1073741760]: int32, no saturation.
+ * Returns 1 when *v holds a new output.
+ */
+HIVE_SCALE_STEP int HIVE_SCALE_stage1(HIVE_SCALE_filters_t *f, int32_t *v)
+{
+    uint32_t h = f->stage1.head;
+    int32_t x = *v;
+    int32_t common = 858993459;
+
+    HIVE_SCALE_OPAQUE(common);
+    f->stage1.csum += (int64_t)common * (x - f->stage1.ring[h]);
+    f->stage1.ring[h] = x;
+    f->stage1.head = h == 4u ? 0u : h + 1u;
+    *v = (int32_t)((f->stage1.csum + f->stage1.ring[h >= 2u ? h - 2u : h + 3u]) >> 32);
+    return 1;
+}
+
+/*
+ * Stage 2, section 1, direct form I with error feedback. a1 and a2 enter negated
+ * (1676130396, -688645970), so every term is a multiply-accumulate; the feedback is kept as
+ * e + 2^29 in [0, 2^30), which carries the rounding constant: y = acc >> 30 and the
+ * new e + 2^29 = acc mod 2^30 (uint32). x [-1073741824, 1073741760], y [-1165432465, 1165432465] (proven bound):
+ * int32, no saturation; acc fits int64 (its proof above).
+ */
+HIVE_SCALE_STEP int32_t HIVE_SCALE_stage2_sec1(HIVE_SCALE_filters_t *f, int32_t x)
+{
+    int64_t acc = f->stage2_sec1.e;
+    int32_t y;
+
+    acc += (int64_t)21564350 * x;
+    acc += (int64_t)43128698 * f->stage2_sec1.x1;
+    acc += (int64_t)21564350 * f->stage2_sec1.x2;
+    acc += (int64_t)1676130396 * f->stage2_sec1.y1;
+    acc += (int64_t)(-688645970) * f->stage2_sec1.y2;
+    y = (int32_t)(acc >> 30);
+    f->stage2_sec1.e = (uint32_t)((uint64_t)acc & 0x3FFFFFFFu);
+    f->stage2_sec1.x2 = f->stage2_sec1.x1;
+    f->stage2_sec1.x1 = x;
+    f->stage2_sec1.y2 = f->stage2_sec1.y1;
+    f->stage2_sec1.y1 = y;
+    return y;
+}
+
+/* Step 2, the cascade in order on chain word *v; 1 when *v holds a new output. */
+HIVE_SCALE_STEP int HIVE_SCALE_filters(HIVE_SCALE_filters_t *f, int32_t *v)
+{
+    (void)HIVE_SCALE_stage1(f, v);
+    *v = HIVE_SCALE_stage2_sec1(f, *v);
+    return 1;
+}
+
+/*
+ * Step 3, scale. v [-1165432465, 1165432465], |M| <= 1408000000: v M + 2^42 is a 32 x 32 -> 64
+ * product in [-1640928910720000000, 1640928910720000000]; s [-186552, 186552]: int32, no saturation.
+ */
+HIVE_SCALE_STEP int32_t HIVE_SCALE_scale(int32_t v, int32_t m, int *clamped)
+{
+    (void)clamped;
+    return (int32_t)((((int64_t)v * m) + INT64_C(4398046511104)) >> 43);
+}
+
+/*
+ * Step 5, temperature. T clamped to [-2000, 4500], dT [-4000, 2500]; |Kz|, |Ks| < 2^31, so
+ * Kz dT and Ks dT are 32 x 32 -> 64 products; z [-125, 125] (int32_t), s1 = s - z [-186677, 186677]
+ * (int32_t), g [-8192000, 8192000] (int32_t), s1 g [-1529257984000, 1529257984000]; result [-188101, 188101]:
+ * int32, no saturation.
+ */
+HIVE_SCALE_STEP int32_t HIVE_SCALE_temperature(int32_t s, int32_t t, int32_t kz, int32_t ks, int *clamped)
+{
+    int32_t dt;
+    int32_t z;
+    int32_t s1;
+    int32_t g;
+
+    (void)clamped;
+    if (t < (-2000)) {
+        t = (-2000);
+    } else if (t > 4500) {
+        t = 4500;
+    }
+    dt = t - 2000;
+    z = (int32_t)((((int64_t)kz * dt) + INT64_C(34359738368)) >> 36);
+    s1 = s - z;
+    g = (int32_t)((((int64_t)ks * dt) + INT64_C(524288)) >> 20);
+    HIVE_SCALE_OPAQUE(g);   /* a 32-bit register: s1 g is then one 32 x 32 -> 64 multiply */
+    return (int32_t)(s1 + ((((int64_t)s1 * g) + INT64_C(536870912)) >> 30));
+}
 
 #endif /* HIVE_SCALE_DESIGN_H */
