@@ -25,6 +25,22 @@ typedef char ht_check_twos_complement[(INT32_MIN == -INT32_MAX - 1) ? 1 : -1];
 #error "the design's linearisation format is not the Q30 this firmware computes in"
 #endif
 
+/* Steps 3 to 5 on chain word v: scale, linearisation, temperature (*clamped as the steps). */
+static inline int32_t ht_static_steps(const ht_constants_t *c, int32_t v, int32_t temp_centi,
+                                      int *clamped)
+{
+    v = HT_D(scale)(v, c->scale_mul, clamped);
+#if HT_D(HAS_LINEARISATION)
+    v = HT_D(linearise)(v, c->lin, clamped);
+#endif
+#if HT_D(HAS_TEMPERATURE)
+    v = HT_D(temperature)(v, temp_centi, c->tc_zero, c->tc_span, clamped);
+#else
+    (void)temp_centi;
+#endif
+    return v;
+}
+
 void ht_constants_default(ht_constants_t *c)
 {
     size_t i;
@@ -85,16 +101,7 @@ ht_status_t ht_process(ht_pipeline_t *p, int32_t code, int32_t temp_centi, int32
 #else
     (void)HT_D(filters)(&p->filters, &v);
 #endif
-    v = HT_D(scale)(v, p->constants.scale_mul, &clamped);
-#if HT_D(HAS_LINEARISATION)
-    v = HT_D(linearise)(v, p->constants.lin, &clamped);
-#endif
-#if HT_D(HAS_TEMPERATURE)
-    v = HT_D(temperature)(v, temp_centi, p->constants.tc_zero, p->constants.tc_span, &clamped);
-#else
-    (void)temp_centi;
-#endif
-    *out = v;
+    *out = ht_static_steps(&p->constants, v, temp_centi, &clamped);
     if (clamped) {
         status |= HT_STATUS_SATURATED;
     }
@@ -106,14 +113,15 @@ ht_status_t ht_process(ht_pipeline_t *p, int32_t code, int32_t temp_centi, int32
 
 int32_t ht_settled_output(const ht_pipeline_t *p, int32_t code, int32_t temp_centi)
 {
-    bool clamped = false;
-    int32_t v;
+    int clamped = 0;
 
     if (code > HT_D(ADC_CODE_HIGHEST)) {
         code = HT_D(ADC_CODE_HIGHEST);
     } else if (code < HT_D(ADC_CODE_LOWEST)) {
         code = HT_D(ADC_CODE_LOWEST);
     }
-    v = ht_sat32((int64_t)code * ht_pow2((unsigned)HT_D(GUARD_BITS)) - p->constants.offset);
-    return ht_static_path(&p->constants, v, temp_centi, &clamped);
+    /* a settled chain word lies inside the offset step's range, which the scale step's
+       range covers (every filter's integer DC gain is 1) */
+    return ht_static_steps(&p->constants, HT_D(offset)(code, p->constants.offset),
+                           temp_centi, &clamped);
 }
