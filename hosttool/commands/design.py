@@ -154,9 +154,11 @@ def response_rows(d: Design) -> list[Row]:
     """The filter response, realised against ideal, one row per figure."""
     r = d.filter_report
     ideal, real = dataclasses.asdict(r.ideal), dataclasses.asdict(r.realised)
-    rows: list[Row] = [("passband", f"0 .. {num(r.passband_edge_hz)} Hz",
-                        f"stopband from {num(r.stopband_edge_hz)} Hz")]
-    labels = {"passband_ripple_db": "passband ripple", "stopband_attenuation_db":
+    stop = ("no stopband: the spec has no lowpass stage, or its band reaches it"
+            if r.stopband_edge_hz is None else f"stopband from {num(r.stopband_edge_hz)} Hz")
+    rows: list[Row] = [("passband", f"0 .. {num(r.passband_edge_hz)} Hz", stop)]
+    labels = {"passband_droop_db": "passband droop (at most, below DC)",
+              "passband_peak_db": "passband peak (above DC)", "stopband_attenuation_db":
               "stopband attenuation", "rejection_50hz_db": "50 Hz, digital filters",
               "rejection_60hz_db": "60 Hz, digital filters",
               "rejection_50hz_with_sinc_db": "50 Hz, with the ADC's sinc",
@@ -164,6 +166,8 @@ def response_rows(d: Design) -> list[Row]:
               "group_delay_dc_s": "group delay at DC", "settling_0p1pct_s": "settling to 0.1 %",
               "settling_1lsb_s": "settling to 1 LSB"}
     for key, value in real.items():
+        if value is None:
+            continue
         unit = "dB" if key.endswith("_db") else "s"
         rows.append((labels.get(key, key), f"{value:.5g} {unit}",
                      f"ideal {ideal[key]:.5g} {unit}"))

@@ -393,18 +393,21 @@ def _design_errors(cascade: CascadeAnalysis, input_bound: int, scale: Scale, c: 
     return tuple(terms)
 
 
-def _stopband_edge(spec: Spec) -> float:
+def _stopband_edge(spec: Spec, band_hz: float) -> float | None:
     """Where the reported stopband starts, Hz: the FIR stop edge, else a decade above the
-    lowest corner, at most 0.8 x Nyquist."""
+    lowest lowpass corner, at most 0.8 x Nyquist. None when the spec defines no stopband (no
+    lowpass stage: a moving average or notches alone) or the signal band reaches it."""
     edges = [s.cutoff_hz + s.transition_hz / 2 for s in spec.filter.stages
              if s.kind == "fir_lowpass" and s.cutoff_hz and s.transition_hz]
     corners = [s.cutoff_hz for s in spec.filter.stages if s.cutoff_hz]
     nyquist = spec.adc.data_rate_sps / 2
     if edges:
-        return min(min(edges), 0.8 * nyquist)
-    if corners:
-        return min(10 * min(corners), 0.8 * nyquist)
-    return 0.8 * nyquist
+        edge = min(min(edges), 0.8 * nyquist)
+    elif corners:
+        edge = min(10 * min(corners), 0.8 * nyquist)
+    else:
+        return None
+    return edge if band_hz < edge else None
 
 
 def _scaled_bound(cascade: CascadeAnalysis, input_bound: int, scale: Scale) -> float:
@@ -496,11 +499,8 @@ def make_design(spec: Spec, constants: UnitConstants | None = None) -> Design:
     full_scale_lsb = spec.sensor.full_scale / spec.output.resolution
     temp = _temperature(spec, full_scale_lsb)
     nominal = _nominal(spec, bridge, converter, g, scale, lin, temp, full_scale_lsb)
-    band, stop = signal_band(spec), _stopband_edge(spec)
-    if not band < stop:
-        raise DesignError(f"{spec.source}: output.bandwidth_hz: the signal band to {band:g} Hz "
-                          f"reaches the filters' stopband from {stop:g} Hz: narrow the band "
-                          "or raise the filter corners")
+    band = min(signal_band(spec), spec.adc.data_rate_sps / 2)
+    stop = _stopband_edge(spec, band)
     report = analyse_chain(stages, passband_edge_hz=band, stopband_edge_hz=stop,
                            adc_rate_hz=spec.adc.data_rate_sps, sinc_order=spec.adc.sinc_order,
                            full_scale_lsb=full_scale_lsb,

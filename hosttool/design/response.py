@@ -25,8 +25,14 @@ from hosttool.physics.adc import rejection_db, sinc_magnitude
 POLE_TOLERANCE = 0.01
 #: Largest |realised - ideal| magnitude in the passband before a warning, dB.
 RESPONSE_TOLERANCE_DB = 0.01
+#: The realised-against-ideal comparison skips frequencies where the ideal is below this, dB.
+DEVIATION_FLOOR_DB = -100.0
 #: Largest loss of stopband attenuation by quantisation before a warning, dB.
 STOPBAND_TOLERANCE_DB = 1.0
+#: Largest droop inside the declared signal band before a warning, dB: more than half the
+#: amplitude lost (a lowpass whose corner is the band edge droops 3 dB there; two such
+#: sections about 6 dB).
+DROOP_WARNING_DB = 20.0 * math.log10(2.0)
 #: Frequency grid sizes of the passband and the stopband.
 PASSBAND_POINTS = 2048
 STOPBAND_POINTS = 16384
@@ -68,8 +74,10 @@ class StageReport:
 class ResponseFigures:
     """Figures of the whole cascade for one set of coefficients (ideal or realised)."""
 
-    passband_ripple_db: float  # peak-to-peak over 0 .. passband edge, droop included
-    stopband_attenuation_db: float  # least attenuation, stopband edge .. input Nyquist
+    passband_droop_db: float  # largest loss below the DC gain over 0 .. passband edge
+    passband_peak_db: float  # largest gain above the DC gain over the same band
+    stopband_attenuation_db: float | None  # least attenuation, stopband edge .. input
+    #                                       Nyquist; None when the spec defines no stopband
     rejection_50hz_db: float  # digital filters alone
     rejection_60hz_db: float
     rejection_50hz_with_sinc_db: float  # digital filters and the ADC's sinc^k
@@ -84,7 +92,7 @@ class ChainReport:
     """Ideal and realised figures of the cascade, per-stage details and warnings."""
 
     passband_edge_hz: float
-    stopband_edge_hz: float
+    stopband_edge_hz: float | None   # None: no stopband (no lowpass, or the band reaches it)
     ideal: ResponseFigures
     realised: ResponseFigures
     max_passband_deviation_db: float
@@ -234,21 +242,34 @@ def pole_reports(stage: BiquadStage) -> tuple[PoleReport, ...]:
 
 
 def _db(h: NDArray[np.float64]) -> NDArray[np.float64]:
-    return 20.0 * np.log10(np.maximum(h, 1e-300))
+    """Magnitude in dB, an exact null capped at -300 dB (as rejection_db caps it)."""
+    return 20.0 * np.log10(np.maximum(h, 1e-15))
+
+
+def _deviation_db(real: NDArray[np.float64], ideal: NDArray[np.float64]) -> float:
+    """Largest |realised - ideal| in dB where the ideal response is above DEVIATION_FLOOR_DB
+    (near a null a relative figure says nothing: any rounding moves it by tens of dB)."""
+    ideal_db = _db(ideal)
+    keep = ideal_db > DEVIATION_FLOOR_DB
+    if not np.any(keep):
+        return 0.0
+    return float(np.max(np.abs(_db(real)[keep] - ideal_db[keep])))
 
 
 def _figures(stages: tuple[Stage, ...], *, realised: bool, passband: NDArray[np.float64],
-             stopband: NDArray[np.float64], adc_rate_hz: float, sinc_order: int,
+             stopband: NDArray[np.float64] | None, adc_rate_hz: float, sinc_order: int,
              sinc_decimation: float | None, lsb_band: float) -> ResponseFigures:
     mains = np.array([50.0, 60.0])
     pass_db = _db(magnitude_response(stages, passband, realised=realised))
-    stop = magnitude_response(stages, stopband, realised=realised)
+    dc_db = float(_db(magnitude_response(stages, np.zeros(1), realised=realised))[0])
+    stop = None if stopband is None else magnitude_response(stages, stopband, realised=realised)
     at_mains = magnitude_response(stages, mains, realised=realised)
     with_sinc = at_mains * sinc_magnitude(mains, adc_rate_hz, sinc_order, sinc_decimation)
     settle = settling_times(stages, adc_rate_hz, (SETTLE_FRACTION, lsb_band), realised=realised)
     return ResponseFigures(
-        passband_ripple_db=float(np.max(pass_db) - np.min(pass_db)),
-        stopband_attenuation_db=rejection_db(float(np.max(stop))),
+        passband_droop_db=max(0.0, dc_db - float(np.min(pass_db))),
+        passband_peak_db=max(0.0, float(np.max(pass_db)) - dc_db),
+        stopband_attenuation_db=None if stop is None else rejection_db(float(np.max(stop))),
         rejection_50hz_db=rejection_db(float(at_mains[0])),
         rejection_60hz_db=rejection_db(float(at_mains[1])),
         rejection_50hz_with_sinc_db=rejection_db(float(with_sinc[0])),
@@ -258,8 +279,8 @@ def _figures(stages: tuple[Stage, ...], *, realised: bool, passband: NDArray[np.
 
 
 def _stage_report(i: int, stage: Stage, passband: NDArray[np.float64]) -> StageReport:
-    deviation = _db(np.abs(frequency_response(stage, passband, realised=True))) - _db(
-        np.abs(frequency_response(stage, passband, realised=False)))
+    deviation = _deviation_db(np.abs(frequency_response(stage, passband, realised=True)),
+                              np.abs(frequency_response(stage, passband, realised=False)))
     formats: tuple[str, ...]
     poles: tuple[PoleReport, ...]
     if isinstance(stage, FirStage):
@@ -271,7 +292,7 @@ def _stage_report(i: int, stage: Stage, passband: NDArray[np.float64]) -> StageR
                        output_rate_hz=stage.rate_hz / stage.decimation,
                        coefficient_formats=formats, coefficient_count=count,
                        group_delay_dc_s=group_delay_dc_s(stage, realised=True),
-                       max_passband_deviation_db=float(np.max(np.abs(deviation))), poles=poles)
+                       max_passband_deviation_db=deviation, poles=poles)
 
 
 def _warnings(report: ChainReport) -> tuple[str, ...]:
@@ -289,11 +310,18 @@ def _warnings(report: ChainReport) -> tuple[str, ...]:
         found.append(f"filter: the quantised cascade departs from the ideal by "
                      f"{report.max_passband_deviation_db:.3g} dB in the passband 0 .. "
                      f"{report.passband_edge_hz:g} Hz, beyond {RESPONSE_TOLERANCE_DB:g} dB")
-    loss = report.ideal.stopband_attenuation_db - report.realised.stopband_attenuation_db
-    if loss > STOPBAND_TOLERANCE_DB:
-        found.append(f"filter: quantisation costs {loss:.3g} dB of stopband attenuation "
-                     f"({report.realised.stopband_attenuation_db:.1f} dB left), beyond "
+    ideal_stop, real_stop = (report.ideal.stopband_attenuation_db,
+                             report.realised.stopband_attenuation_db)
+    if ideal_stop is not None and real_stop is not None \
+            and ideal_stop - real_stop > STOPBAND_TOLERANCE_DB:
+        found.append(f"filter: quantisation costs {ideal_stop - real_stop:.3g} dB of stopband "
+                     f"attenuation ({real_stop:.1f} dB left), beyond "
                      f"{STOPBAND_TOLERANCE_DB:g} dB")
+    droop = report.realised.passband_droop_db
+    if droop > DROOP_WARNING_DB:
+        found.append(f"filter: the response droops {droop:.3g} dB inside the declared signal "
+                     f"band 0 .. {report.passband_edge_hz:g} Hz (more than half the amplitude "
+                     "lost): narrow output.bandwidth_hz or raise the filter corners")
     if math.isinf(report.realised.settling_1lsb_s):
         found.append(f"filter: the step response does not settle to one output LSB within "
                      f"{MAX_STEP_SAMPLES} input samples")
@@ -301,31 +329,35 @@ def _warnings(report: ChainReport) -> tuple[str, ...]:
 
 
 def analyse_chain(stages: tuple[Stage, ...], *, passband_edge_hz: float,
-                  stopband_edge_hz: float, adc_rate_hz: float, sinc_order: int,
+                  stopband_edge_hz: float | None, adc_rate_hz: float, sinc_order: int,
                   full_scale_lsb: float, sinc_decimation: float | None = None) -> ChainReport:
     """Ideal and realised response figures of the cascade, with warnings.
 
-    ``adc_rate_hz`` is the cascade's input rate (the ADC data rate); the stopband runs from
-    ``stopband_edge_hz`` to half of it. ``full_scale_lsb`` is a full-scale step in output
+    ``adc_rate_hz`` is the cascade's input rate (the ADC data rate); the passband runs to
+    ``passband_edge_hz`` (at most half the rate), the stopband, if there is one, from
+    ``stopband_edge_hz`` to half the rate. ``full_scale_lsb`` is a full-scale step in output
     LSB (settling to one LSB means within 1 / full_scale_lsb of the step).
     ``sinc_decimation`` is the ADC's modulator rate over its data rate, if known.
     """
     nyquist = adc_rate_hz / 2
-    if not 0 < passband_edge_hz < stopband_edge_hz < nyquist:
-        raise ValueError("need 0 < passband_edge_hz < stopband_edge_hz < adc_rate_hz / 2")
+    if not 0 < passband_edge_hz <= nyquist:
+        raise ValueError("need 0 < passband_edge_hz <= adc_rate_hz / 2")
+    if stopband_edge_hz is not None and not passband_edge_hz < stopband_edge_hz < nyquist:
+        raise ValueError("need passband_edge_hz < stopband_edge_hz < adc_rate_hz / 2")
     passband = np.linspace(0.0, passband_edge_hz, PASSBAND_POINTS)
-    stopband = np.linspace(stopband_edge_hz, nyquist, STOPBAND_POINTS)
+    stopband = None if stopband_edge_hz is None else np.linspace(stopband_edge_hz, nyquist,
+                                                                 STOPBAND_POINTS)
 
     def figures(realised: bool) -> ResponseFigures:
         return _figures(stages, realised=realised, passband=passband, stopband=stopband,
                         adc_rate_hz=adc_rate_hz, sinc_order=sinc_order,
                         sinc_decimation=sinc_decimation, lsb_band=1.0 / full_scale_lsb)
 
-    deviation = _db(magnitude_response(stages, passband, realised=True)) - _db(
-        magnitude_response(stages, passband, realised=False))
+    deviation = _deviation_db(magnitude_response(stages, passband, realised=True),
+                              magnitude_response(stages, passband, realised=False))
     report = ChainReport(
         passband_edge_hz=passband_edge_hz, stopband_edge_hz=stopband_edge_hz,
         ideal=figures(False), realised=figures(True),
-        max_passband_deviation_db=float(np.max(np.abs(deviation))),
+        max_passband_deviation_db=deviation,
         stages=tuple(_stage_report(i, s, passband) for i, s in enumerate(stages)), warnings=())
     return dataclasses.replace(report, warnings=_warnings(report))
