@@ -133,6 +133,13 @@ void ht_pipeline_init(ht_pipeline_t *p)
     ht_pipeline_reset(p);
 }
 
+int32_t ht_settled_output(const ht_pipeline_t *p, int32_t code, int32_t temp_centi)
+{
+    code = code > 8388607 ? 8388607 : (code < -8388608 ? -8388608 : code);
+    return hw_temperature(hw_scale(hw_offset(code, p->constants.offset), p->constants.scale_mul),
+                          temp_centi, p->constants.tc_zero, p->constants.tc_span);
+}
+
 ht_status_t ht_process(ht_pipeline_t *p, int32_t code, int32_t temp_centi, int32_t *out)
 {
     ht_status_t status = HT_STATUS_READY;
