@@ -244,3 +244,25 @@ def test_change_of_block_meaning_is_refused_as_by_render(tmp_path: Path) -> None
     assert (tmp_path / "fw" / "vectors" / "hive_scale.expected").read_bytes() == before
     assert _hosttool("firmware", "-o", tmp_path / "fw", "--spec", spec, "--force"
                      ).returncode == 0
+
+
+def test_checks_fail_when_the_firmware_differs_from_the_model(tmp_path: Path) -> None:
+    # The checks are real: one output changed by one LSB in the expected file makes both
+    # make's check (cmp) and CTest's (cmake -E compare_files) fail.
+    require_tools("host", run=True)
+    require_programs("make", "cmake", "ctest")
+    fw = tmp_path / "fw"
+    write_firmware(fw, make_design(load_spec(EXAMPLES / "fatigue_coupon.toml")))
+    expected = fw / "vectors" / "fatigue_coupon.expected"
+    lines = expected.read_text().split("\n")
+    value, status = lines[100].split()
+    lines[100] = f"{int(value) + 1} {status}"
+    expected.write_text("\n".join(lines))
+    done = subprocess.run(["make", "-C", str(fw), "check-host"], capture_output=True,
+                          text=True, check=False)
+    assert done.returncode != 0 and "differ" in done.stdout + done.stderr
+    _run("cmake", "-S", fw, "-B", tmp_path / "b")
+    _run("cmake", "--build", tmp_path / "b")
+    done = subprocess.run(["ctest", "--test-dir", str(tmp_path / "b"), "--output-on-failure"],
+                          capture_output=True, text=True, check=False)
+    assert done.returncode != 0 and "differs from" in done.stdout
