@@ -50,7 +50,36 @@ def guarded(func: F) -> F:
     return wrapper  # type: ignore[return-value]
 
 
-@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+class OneLineGroup(click.Group):
+    """The command group, whose usage errors (an unknown command or option, a bad option
+    value, a folder given as a file) are one line on stderr and exit status 2, like every
+    other bad input; ``--help`` and ``--version`` are click's own."""
+
+    def main(self, *args: Any, **kwargs: Any) -> Any:
+        kwargs["standalone_mode"] = False
+        try:
+            return super().main(*args, **kwargs)
+        except click.exceptions.Exit as exc:          # --help, --version
+            sys.exit(exc.exit_code)
+        except click.ClickException as exc:
+            click.echo(f"hosttool: error: {usage_line(exc)}", err=True)
+            sys.exit(2)
+        except click.Abort:
+            click.echo("hosttool: error: interrupted", err=True)
+            sys.exit(1)
+
+
+def usage_line(exc: click.ClickException) -> str:
+    """A usage error as one line: the command, click's message, where to find help."""
+    message = " ".join(exc.format_message().split())
+    ctx = getattr(exc, "ctx", None)
+    if ctx is None:
+        return message
+    command = ctx.command_path.partition(" ")[2]
+    return f"{command + ': ' if command else ''}{message} (see {ctx.command_path} --help)"
+
+
+@click.group(cls=OneLineGroup, context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(__version__, prog_name="hosttool")
 @click.option("--debug", is_flag=True, help="Show the traceback of an error (for bug reports).")
 def main(debug: bool) -> None:

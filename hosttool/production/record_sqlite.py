@@ -55,6 +55,9 @@ class SqliteRecord:
         self.db.execute("CREATE TABLE IF NOT EXISTS record_info "
                         "(key TEXT PRIMARY KEY, value TEXT NOT NULL)")
         found = self.db.execute("SELECT value FROM record_info WHERE key = 'schema'").fetchone()
+        if found is not None and not str(found[0]).isdigit():
+            raise OutputError(f"{self.path}: record_info.schema: {found[0]!r} is not a schema "
+                              "version: not a production record of this tool")
         version = SCHEMA_VERSION if found is None else int(found[0])
         if version > SCHEMA_VERSION:
             raise OutputError(f"{self.path}: record schema {version}, this tool writes "
@@ -65,6 +68,11 @@ class SqliteRecord:
                     self.db.execute(statement)
         for statement in iter_statements(TABLE.format(id="INTEGER PRIMARY KEY")):
             self.db.execute(statement)
+        have = {row[1] for row in self.db.execute("PRAGMA table_info(calibrations)")}
+        lacking = [c for c in ("id", *COLUMNS) if c not in have]
+        if lacking:
+            raise OutputError(f"{self.path}: calibrations.{lacking[0]}: no such column: not a "
+                              f"production record of schema {SCHEMA_VERSION}")
         self.db.execute("INSERT OR REPLACE INTO record_info VALUES ('schema', ?)",
                         (str(SCHEMA_VERSION),))
 
@@ -113,11 +121,16 @@ class SqliteRecord:
 
     def add(self, values: dict[str, Any], supersedes: int | None) -> None:
         """Insert a current row (clearing ``current`` on the row it supersedes)."""
-        if supersedes is not None:
-            self.db.execute("UPDATE calibrations SET current = 0 WHERE id = ?", (supersedes,))
-        self.db.execute(f"INSERT INTO calibrations ({', '.join(COLUMNS)}) VALUES "
-                        f"({', '.join('?' * len(COLUMNS))})",
-                        tuple(values[c] for c in COLUMNS))
+        try:
+            if supersedes is not None:
+                self.db.execute("UPDATE calibrations SET current = 0 WHERE id = ?",
+                                (supersedes,))
+            self.db.execute(f"INSERT INTO calibrations ({', '.join(COLUMNS)}) VALUES "
+                            f"({', '.join('?' * len(COLUMNS))})",
+                            tuple(values[c] for c in COLUMNS))
+        except sqlite3.Error as exc:
+            raise OutputError(f"{self.path}: cannot record {values['serial']}: {exc}") \
+                from None
 
     def select(self, which: Filter) -> list[dict[str, Any]]:
         """Rows as dicts, by serial and revision."""
