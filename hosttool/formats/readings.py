@@ -92,7 +92,7 @@ def _columns(header: list[str], spec: Spec, source: str, line: int) -> dict[str,
     ref = reference_column(spec)
     known = (REQUIRED[0], ref) + REQUIRED[1:] + OPTIONAL
     index: dict[str, int] = {}
-    for i, name in enumerate(h.strip() for h in header):
+    for i, name in enumerate(h.strip(CELL_PADDING) for h in header):
         if name in index:
             raise InputError(f"{source}:{line}: {name}: column given twice")
         if name not in known:
@@ -112,6 +112,9 @@ def _columns(header: list[str], spec: Spec, source: str, line: int) -> dict[str,
 
 
 _NUMBER_RE = re.compile(r"[+-]?(?:[0-9]+(?:\.[0-9]*)?|\.[0-9]+)(?:[eE][+-]?[0-9]+)?")
+#: Stripped from both ends of a cell (and of a header name): only spaces and tabs, so any
+#: other control character stays in the cell and is refused by its column's check.
+CELL_PADDING = " \t"
 #: The largest ``samples`` accepted (codes averaged into one reading).
 SAMPLES_MAX = 1_000_000_000
 
@@ -248,7 +251,7 @@ def parse_readings(text: str, spec: Spec, source: str, *, per_unit: bool = False
         if len(cells) != len(header):
             raise InputError(f"{source}:{line}: {len(cells)} fields, the header has "
                              f"{len(header)}")
-    columns = {name: [r[i].strip() for r in rows] for name, i in index.items()}
+    columns = {name: [r[i].strip(CELL_PADDING) for r in rows] for name, i in index.items()}
     checks = _checks(columns, rules, has_time)
     bad_rows = np.zeros(len(rows), dtype=bool)
     for check in checks:

@@ -30,14 +30,15 @@ class Limit:
 
     def problem(self, value: float) -> str | None:
         """None if ``value`` is allowed, else the message (``must be ... , got ...``)."""
+        shown = str(value) if isinstance(value, int) else f"{value:g}"
         if self.low_open and value <= self.low:
-            return f"must be greater than {self.low:g}, got {value:g} ({self.why})"
+            return f"must be greater than {self.low:g}, got {shown} ({self.why})"
         if not self.low_open and value < self.low:
-            return f"must be at least {self.low:g}, got {value:g} ({self.why})"
+            return f"must be at least {self.low:g}, got {shown} ({self.why})"
         if self.high_open and value >= self.high:
-            return f"must be less than {self.high:g}, got {value:g} ({self.why})"
+            return f"must be less than {self.high:g}, got {shown} ({self.why})"
         if not self.high_open and value > self.high:
-            return f"must be at most {self.high:g}, got {value:g} ({self.why})"
+            return f"must be at most {self.high:g}, got {shown} ({self.why})"
         return None
 
 
