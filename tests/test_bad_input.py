@@ -231,6 +231,9 @@ CASES: list[Case] = [
          "check: No such option '--bogus'. (see hosttool check --help)"),
     Case("missing-argument", ("check",),
          "check: Missing argument 'SPEC'. (see hosttool check --help)"),
+    Case("station-nel", ("batch", S, LOT, "--out", "lot", "--station", "bench\x852"),
+         "--station: 'bench\\x852' must be a name without control characters",
+         absent=("lot",)),
     Case("verify-samples-huge", ("verify", S, "--samples", "99999999999999999999999"),
          "--samples: 99999999999999999999999 is more than the 100000000 this tool runs (the "
          "codes and outputs of each test are held in memory)"),

@@ -62,6 +62,7 @@ from hosttool.production.traceability import check_lot_standards, unit_standards
 from hosttool.spec.schema import load_spec
 from hosttool.util.atomic import make_folder
 from hosttool.util.atomic_group import write_group
+from hosttool.util.text import control_character, shown
 from hosttool.util.utctime import format_time_utc, parse_time_utc
 
 #: Units handed to a worker process at a time (with jobs > 1).
@@ -393,6 +394,9 @@ def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: str | Path
               progress: Callable[[Iterable[Prepared], int], Iterable[Prepared]] | None = None
               ) -> BatchSummary:
     """Calibrate, image and record every unit of a readings file."""
+    if station is not None and (control_character(station) or not station.strip()):
+        raise InputError(f"--station: {shown(station)} must be a name without control "
+                         "characters")
     design = cached_design(load_spec(spec_path))
     ctx = CalibrationContext.of(design)
     block_area(design)
