@@ -448,6 +448,8 @@ def test_record_lacking_a_column_is_one_line(good: dict[str, bytes], tmp_path: P
     """Source: sqlite3 (standard library) makes the record without hex_sha256."""
     import sqlite3
 
+    from hosttool.production.record import COLUMNS, SCHEMA_VERSION
+
     _write(tmp_path, good, {})
     (tmp_path / "out").mkdir()
     db = sqlite3.connect(tmp_path / "old.sqlite")
@@ -460,8 +462,12 @@ def test_record_lacking_a_column_is_one_line(good: dict[str, bytes], tmp_path: P
     monkeypatch.chdir(tmp_path)
     done = CliRunner().invoke(main, ["batch", S, LOT, "--out", "out", "--db", "old.sqlite"])
     assert done.exit_code == 2
-    assert done.stderr == ("hosttool: error: old.sqlite: calibrations.hex_sha256: no such "
-                           "column: not a production record of schema 1\n")
+    made = ("id", "serial", "revision", "current", "station", "recorded_utc", "cal_time_utc",
+            "spec_name", "spec_sha256", "readings_file", "readings_sha256", "constants",
+            "figures", "verdict", "reasons", "hex_file")
+    lacking = next(c for c in COLUMNS if c not in made)
+    assert done.stderr == (f"hosttool: error: old.sqlite: calibrations.{lacking}: no such "
+                           f"column: not a production record of schema {SCHEMA_VERSION}\n")
     assert not any(p.suffix == ".hex" for p in (tmp_path / "out").iterdir())
 
 

@@ -66,13 +66,13 @@ class SqliteRecord:
             for old in range(version, SCHEMA_VERSION):
                 for statement in MIGRATIONS[old]:
                     self.db.execute(statement)
-        for statement in iter_statements(TABLE.format(id="INTEGER PRIMARY KEY")):
-            self.db.execute(statement)
         have = {row[1] for row in self.db.execute("PRAGMA table_info(calibrations)")}
         lacking = [c for c in ("id", *COLUMNS) if c not in have]
-        if lacking:
+        if have and lacking:
             raise OutputError(f"{self.path}: calibrations.{lacking[0]}: no such column: not a "
                               f"production record of schema {SCHEMA_VERSION}")
+        for statement in iter_statements(TABLE.format(id="INTEGER PRIMARY KEY")):
+            self.db.execute(statement)
         self.db.execute("INSERT OR REPLACE INTO record_info VALUES ('schema', ?)",
                         (str(SCHEMA_VERSION),))
 
