@@ -333,6 +333,10 @@ CASES: list[Case] = [
     Case("header-other-unit", ("calibrate", S, LOT, "--serial", "HV-0000", "-o", "x.json"),
          "lot.csv:2: reference_lb: the spec's output unit is 'kg'; expected the column "
          "reference_kg", {LOT: sub("reference_kg", "reference_lb")}, absent=("x.json",)),
+    Case("cell-beyond-csv-limit", ("calibrate", S, LOT, "--serial", "HV-0000", "-o",
+                                   "x.json"),
+         "lot.csv:3: not a CSV line: field larger than field limit (131072)",
+         {LOT: sub("HV-0000,0,", '"' + "H" * 200_000 + '",0,')}, absent=("x.json",)),
     Case("readings-empty", ("calibrate", S, LOT, "--serial", "HV-0000", "-o", "x.json"),
          "lot.csv: no header and no readings", {LOT: "# nothing\n"}, absent=("x.json",)),
     Case("serial-not-in-file", ("calibrate", S, LOT, "--serial", "HV-9", "-o", "x.json"),

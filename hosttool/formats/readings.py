@@ -221,6 +221,14 @@ def _checks(cells: dict[str, list[str]], rules: _Rules, has_time: bool) -> list[
     return checks
 
 
+def _split(line: str, source: str, number: int) -> list[str]:
+    """The cells of a line with quotes (csv module); a line it cannot split is refused."""
+    try:
+        return next(csv.reader([line]))
+    except csv.Error as exc:
+        raise InputError(f"{source}:{number}: not a CSV line: {exc}") from None
+
+
 def parse_readings(text: str, spec: Spec, source: str, *, per_unit: bool = False
                    ) -> ReadingsFile:
     """Validate the CSV text of a readings file for ``spec``; ``source`` names it in errors.
@@ -239,14 +247,14 @@ def parse_readings(text: str, spec: Spec, source: str, *, per_unit: bool = False
     bad_char = control_character(header_text)
     if bad_char is not None:
         raise InputError(f"{source}:{header_line}: header: control character {bad_char}")
-    header = next(csv.reader([header_text]))
+    header = _split(header_text, source, header_line)
     index = _columns(header, spec, source, header_line)
     if len(body) == 1:
         raise InputError(f"{source}: the header is there but no readings follow")
     rules = _Rules.of(spec)
     has_time = "time_utc" in index
     lines = [n for n, _ in body[1:]]
-    rows = [next(csv.reader([t])) if '"' in t else t.split(",") for _, t in body[1:]]
+    rows = [_split(t, source, n) if '"' in t else t.split(",") for n, t in body[1:]]
     for line, cells in zip(lines, rows, strict=True):
         if len(cells) != len(header):
             raise InputError(f"{source}:{line}: {len(cells)} fields, the header has "
