@@ -4,7 +4,8 @@ example, beside a hand-written chain for hive_scale (benchmarks/hive_scale_by_ha
 Instructions per sample: ht_runner on Cortex-M4 (QEMU mps2-an386) and Cortex-M3
 (mps2-an385) with -icount shift=0, so each count is the same on every run: SysTick ticks
 inside ht_process() minus the timing overhead, 40 instructions per tick, averaged over
-random codes (and temperatures). Code size per block: ht_pipeline.c compiled with -O2 and
+random codes (and temperatures); "compact" is the build with PREFIX_COMPACT (a written-out
+FIR as a loop over its table). Code size per block: ht_pipeline.c compiled with -O2 and
 every step made a function of its own (the design header's PREFIX_STEP set to noinline), as
 arm-none-eabi-nm reports each function (literal pools included; "tables" are the const
 arrays); "whole" is the text of ht_pipeline.o as it is really built, steps inlined. The
@@ -56,6 +57,7 @@ class Chain:
     source: Path | None         # None: firmware_stub/ht_pipeline.c
     block_macro: str            # the storage-class macro that makes each block a function
     block_names: re.Pattern[str]
+    defines: tuple[str, ...] = ()   # extra -D options (PREFIX_COMPACT)
 
 
 def _prepare(design: Design, work: Path, source: Path | None) -> tuple[Path, Path]:
@@ -79,8 +81,9 @@ def _compile(chain: Chain, kind: str, work: Path, extra: list[str]) -> Path:
                                      if f not in ("-nostartfiles", "--specs=rdimon.specs"))]
     name = chain.source.name if chain.source else "ht_pipeline.c"
     obj = work / f"{kind}-{name}.o"
-    subprocess.run([spec.compiler, *flags, *(f"-D{d}" for d in firmware_defines(chain.design)),
-                    *extra, f"-I{src}", f"-I{gen}", "-c", str(src / name), "-o", str(obj)],
+    defines = (*firmware_defines(chain.design), *chain.defines)
+    subprocess.run([spec.compiler, *flags, *(f"-D{d}" for d in defines), *extra,
+                    f"-I{src}", f"-I{gen}", "-c", str(src / name), "-o", str(obj)],
                    check=True)
     return obj
 
@@ -119,7 +122,7 @@ def _instructions(chain: Chain, kind: str, work: Path, samples: int) -> float:
     gen, _ = _prepare(chain.design, work, chain.source)
     program = HT_RUNNER if chain.source is None else BY_HAND_RUNNER
     exe = cbuild.build(program, kind, work / "run", include_dirs=[gen],
-                       defines=firmware_defines(chain.design),
+                       defines=(*firmware_defines(chain.design), *chain.defines),
                        extra_sources=[] if chain.source is None else [chain.source])
     codes, temps = _vectors(chain.design, samples)
     result = run_runner(exe, kind, codes, temps)
@@ -136,8 +139,11 @@ def _chains() -> list[Chain]:
     for path in sorted(EXAMPLES.glob("*.toml")):
         design = make_design(load_spec(path))
         prefix = c_prefix(design.spec.name)
-        chains.append(Chain(design.spec.name, design, None, f"{prefix}_STEP",
-                            re.compile(rf"^(?:{prefix}_)?(\w+?)(?:\.\w+)*$")))
+        names = re.compile(rf"^(?:{prefix}_)?(\w+?)(?:\.\w+)*$")
+        chains.append(Chain(design.spec.name, design, None, f"{prefix}_STEP", names))
+        if f"{prefix}_COMPACT" in render_headers(design)[0].text:
+            chains.append(Chain(f"{design.spec.name} compact", design, None, f"{prefix}_STEP",
+                                names, (f"{prefix}_COMPACT",)))
         if design.spec.name == "hive_scale":
             chains.append(Chain("hive_scale by hand", design, BY_HAND, "HW_BLOCK",
                                 re.compile(r"^(?:hw_)?(\w+?)(?:\.\w+)*$")))
@@ -162,21 +168,21 @@ def main() -> None:
                 ips[chain.label, kind] = _instructions(chain, kind, Path(tmp) / f"r{n}{kind}",
                                                        args.samples)
     print("code size per block, bytes (-O2; each block compiled as a function of its own)")
-    print(f"{'chain':<20} {'block':<14} " + " ".join(f"{label:>6}" for _, label in SIZE_KINDS))
+    print(f"{"chain":<24} {'block':<14} " + " ".join(f"{label:>6}" for _, label in SIZE_KINDS))
     for chain in chains:
         blocks = sorted({b for kind, _ in SIZE_KINDS for b in sizes[chain.label, kind]},
                         key=lambda b: (b == "whole", b == "ht_process", b))
         for block in blocks:
             row = " ".join(f"{sizes[chain.label, kind].get(block, 0):>6}"
                            for kind, _ in SIZE_KINDS)
-            print(f"{chain.label:<20} {block:<14} {row}")
+            print(f"{chain.label:<24} {block:<14} {row}")
     print(f"\ninstructions per input sample (QEMU -icount shift=0, {args.samples} random samples,"
           " outputs bit-exact with the Python model)")
-    print(f"{'chain':<20} " + " ".join(f"{label:>8}" for _, label in RUN_KINDS)
+    print(f"{"chain":<24} " + " ".join(f"{label:>8}" for _, label in RUN_KINDS)
           + "   decimation")
     for chain in chains:
         row = " ".join(f"{ips[chain.label, kind]:8.1f}" for kind, _ in RUN_KINDS)
-        print(f"{chain.label:<20} {row}   {chain.design.decimation}")
+        print(f"{chain.label:<24} {row}   {chain.design.decimation}")
     if ("hive_scale by hand", "m4") in ips:
         print("\nhive_scale, generated / hand-written:")
         for kind, label in RUN_KINDS:

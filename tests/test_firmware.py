@@ -522,3 +522,18 @@ def test_two_specs_build_into_one_program(kind: str, tmp_path: Path) -> None:
         assert np.array_equal([int(r[1]) for r in mine], model.output), d.spec.name
         assert np.array_equal([int(r[2], 16) for r in mine],
                               model.status(calibrated=False)), d.spec.name
+
+
+@pytest.mark.parametrize("kind", ["host", "host-san"])
+def test_compact_fir_build_is_the_same_arithmetic(kind: str, tmp_path: Path) -> None:
+    # PREFIX_COMPACT swaps a written-out symmetric FIR for the loop over its folded table:
+    # smaller code, the same integers (compared with the model by the compiled program).
+    require_tools(kind, run=True)
+    d = DESIGNS["fatigue_coupon"]
+    gen = _gen(d, tmp_path)
+    assert "#if !defined(FATIGUE_COUPON_COMPACT)" in (gen / "fatigue_coupon_design.h").read_text()
+    exe = cbuild.build(HT_RUNNER, kind, tmp_path, include_dirs=[gen],
+                       defines=(*firmware_defines(d), "FATIGUE_COUPON_COMPACT"))
+    for label, (codes, temps) in vectors(d, long_run=20_000).items():
+        got = run_runner(exe, kind, codes, temps, timeout_s=TIMEOUT_S)
+        assert np.array_equal(got.output, run_integer(d, codes, temps).output), label

@@ -7,7 +7,7 @@
  * longer matches the body hash below, unless forced.
  * spec fatigue_coupon, sha256 15269441c7dbbf5240af85f6bae321748c97d9ee4785454364c4ce68d4b85161
  * defaults: nominal constants of the spec
- * body sha256 6dc17408be55d9c76cd5167206a07c0ae13644b6abd42ebd76a665efc810bd2f
+ * body sha256 31f6449c2ddda385500287cdd3869849348e18a07cec674e7f5faded849a6891
  */
 #ifndef FATIGUE_COUPON_DESIGN_H
 #define FATIGUE_COUPON_DESIGN_H
@@ -367,10 +367,61 @@ FATIGUE_COUPON_STEP void FATIGUE_COUPON_filters_reset(FATIGUE_COUPON_filters_t *
     f->stage3_sec1.e = 536870912u;
 }
 
+/* Stage 1: taps h[0] .. h[45] of a symmetric FIR (h[k] = h[92 - k]) and its centre h[46]. */
+static const int32_t FATIGUE_COUPON_STAGE1_FOLDED[46] = {
+    (-302228),
+    (-404593),
+    (-440124),
+    (-357796),
+    (-118126),
+    291807,
+    845383,
+    1469286,
+    2045522,
+    2424606,
+    2449851,
+    1990154,
+    976183,
+    (-567033),
+    (-2498927),
+    (-4560746),
+    (-6396267),
+    (-7596975),
+    (-7768136),
+    (-6607402),
+    (-3983468),
+    0,
+    4970032,
+    10291623,
+    15123249,
+    18519760,
+    19573352,
+    17575303,
+    12174968,
+    3509617,
+    (-7720206),
+    (-20249657),
+    (-32333380),
+    (-41912495),
+    (-46850111),
+    (-45208616),
+    (-35533083),
+    (-17100905),
+    9900582,
+    44299258,
+    83984247,
+    126074835,
+    167197011,
+    203836585,
+    232725833,
+    251214537
+};
+
 /*
  * Stage 1, fir_lowpass FIR of 93 taps, decimation 4.
  * Folded: acc = 2^30 + sum over k < 46 of h[k] (x[n-k] + x[n-92+k]) + h[46] x[n-46],
- * written out with each tap a constant; x [-536870912, 536870880], each pair sum [-1073741824, 1073741760] (int32),
+ * written out with each tap a constant (define FATIGUE_COUPON_COMPACT for a loop over a table,
+ * smaller and slower); x [-536870912, 536870880], each pair sum [-1073741824, 1073741760] (int32),
  * acc [-1772492580763447168, 1772492514191454080] (int64), y = acc >> 31 in [-825381177, 825381145]: int32, no saturation.
  * Returns 1 when *v holds a new output, 0 while the stage waits for inputs.
  */
@@ -392,6 +443,7 @@ FATIGUE_COUPON_STEP int FATIGUE_COUPON_stage1(FATIGUE_COUPON_filters_t *f, int32
     f->stage1.phase = 0u;
     a = &line[at];
     z = &line[at + 92u];
+#if !defined(FATIGUE_COUPON_COMPACT)
     acc += (int64_t)(-302228) * (a[0] + z[0]);
     acc += (int64_t)(-404593) * (a[1] + z[-1]);
     acc += (int64_t)(-440124) * (a[2] + z[-2]);
@@ -438,7 +490,25 @@ FATIGUE_COUPON_STEP int FATIGUE_COUPON_stage1(FATIGUE_COUPON_filters_t *f, int32
     acc += (int64_t)203836585 * (a[43] + z[-43]);
     acc += (int64_t)232725833 * (a[44] + z[-44]);
     acc += (int64_t)251214537 * (a[45] + z[-45]);
-    acc += (int64_t)257577028 * a[46];
+#else
+    {
+        const int32_t *h = FATIGUE_COUPON_STAGE1_FOLDED;
+        uint32_t k;
+
+        for (k = 0u; k < 11u; ++k) {
+            acc += (int64_t)h[0] * (a[0] + z[0]);
+            acc += (int64_t)h[1] * (a[1] + z[-1]);
+            acc += (int64_t)h[2] * (a[2] + z[-2]);
+            acc += (int64_t)h[3] * (a[3] + z[-3]);
+            h += 4;
+            a += 4;
+            z -= 4;
+        }
+        acc += (int64_t)h[0] * (a[0] + z[0]);
+        acc += (int64_t)h[1] * (a[1] + z[-1]);
+    }
+#endif
+    acc += (int64_t)257577028 * line[at + 46u];
     *v = (int32_t)(acc >> 31);
     return 1;
 }
