@@ -168,7 +168,7 @@ def main() -> None:
                 ips[chain.label, kind] = _instructions(chain, kind, Path(tmp) / f"r{n}{kind}",
                                                        args.samples)
     print("code size per block, bytes (-O2; each block compiled as a function of its own)")
-    print(f"{"chain":<24} {'block':<14} " + " ".join(f"{label:>6}" for _, label in SIZE_KINDS))
+    print(f"{'chain':<24} {'block':<14} " + " ".join(f"{label:>6}" for _, label in SIZE_KINDS))
     for chain in chains:
         blocks = sorted({b for kind, _ in SIZE_KINDS for b in sizes[chain.label, kind]},
                         key=lambda b: (b == "whole", b == "ht_process", b))
@@ -178,7 +178,7 @@ def main() -> None:
             print(f"{chain.label:<24} {block:<14} {row}")
     print(f"\ninstructions per input sample (QEMU -icount shift=0, {args.samples} random samples,"
           " outputs bit-exact with the Python model)")
-    print(f"{"chain":<24} " + " ".join(f"{label:>8}" for _, label in RUN_KINDS)
+    print(f"{'chain':<24} " + " ".join(f"{label:>8}" for _, label in RUN_KINDS)
           + "   decimation")
     for chain in chains:
         row = " ".join(f"{ips[chain.label, kind]:8.1f}" for kind, _ in RUN_KINDS)
