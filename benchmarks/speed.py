@@ -1,0 +1,230 @@
+"""Speed of verify and of the production line, against bare C loops of the same work.
+
+For each example spec:
+
+- **static pass**: hosttool's compiled sweep (every ADC code at every temperature step:
+  integer path, float64 reference, statistics) against one fused C loop doing the same per
+  code (benchmarks/bare_static.c: the firmware's own ht_settled_output compiled -O2 with the
+  design's headers, the float64 reference, the statistics), cut into the same chunks and
+  run by the same number of threads;
+- **dynamic chain**: the integer model through the whole chain (model.run_integer, with
+  its peaks and saturation counts) against the firmware's ht_process driven in memory
+  (firmware_stub/ht_sweep.c, -O2, no text I/O) on the same random codes;
+- **whole verify** (``hosttool verify SPEC --json``, design cached, a fresh process each
+  time) and ``hosttool check`` against a bare ``python -c pass``;
+
+then ``batch`` of invented hive_scale lots (13 readings per unit) into a fresh folder and
+record. Ratios are Python / C (1.0: as fast as C). Each figure is the median of
+``--repeat`` runs, Python and C interleaved. The load average is printed before and after:
+figures taken on a busy machine are not worth much. Asserts nothing.
+
+Run: python benchmarks/speed.py [--repeat 5] [--samples 1000000] [--lots 1000,10000,100000]
+                                [--jobs 2] [--threads N] [--skip-batch]
+"""
+
+from __future__ import annotations
+
+import argparse
+import ctypes
+import os
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
+from pathlib import Path
+
+import numpy as np
+
+from hosttool.codegen.render import firmware_defines, render_headers, write_headers
+from hosttool.design.cached import cached_design
+from hosttool.design.model import run_integer, static_params
+from hosttool.design.resolve import Design
+from hosttool.spec.schema import load_spec
+from hosttool.util.resources import firmware_sources
+from hosttool.verify.proof import static_temperatures
+from hosttool.verify.sweep import CHUNK, sweep_static
+
+HERE = Path(__file__).resolve().parent
+EXAMPLES = HERE.parent / "examples"
+START_UTC = 1_741_075_200
+_P32 = ctypes.POINTER(ctypes.c_int32)
+_PD = ctypes.POINTER(ctypes.c_double)
+
+
+def _median(func: Callable[[], object], repeat: int) -> float:
+    times = []
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        func()
+        times.append(time.perf_counter() - t0)
+    return statistics.median(times)
+
+
+def _interleaved(a: Callable[[], object], b: Callable[[], object],
+                 repeat: int) -> tuple[float, float]:
+    """Medians of a and b, run alternately after one warm-up call each."""
+    a()
+    b()
+    ta, tb = [], []
+    for _ in range(repeat):
+        ta.append(_median(a, 1))
+        tb.append(_median(b, 1))
+    return statistics.median(ta), statistics.median(tb)
+
+
+def build_bare(design: Design, folder: Path) -> ctypes.CDLL:
+    """bare_static.c and the firmware (with ht_sweep.c) as one -O2 shared library."""
+    gen = folder / "gen"
+    gen.mkdir(parents=True, exist_ok=True)
+    write_headers(render_headers(design), gen, force=True)
+    src = Path(str(firmware_sources()))
+    sources = [HERE / "bare_static.c",
+               *(src / n for n in ("ht_sweep.c", "ht_pipeline.c", "ht_calblock.c",
+                                   "ht_crc32.c"))]
+    lib = folder / "libbare.so"
+    subprocess.run(["gcc", "-std=c99", "-O2", "-fPIC", "-shared",
+                    *(f"-D{d}" for d in firmware_defines(design)), f"-I{src}", f"-I{gen}",
+                    *map(str, sources), "-lm", "-o", str(lib)], check=True)
+    return ctypes.CDLL(str(lib))
+
+
+def c_static(lib: ctypes.CDLL, design: Design, temps: list[int | None],
+             threads: int) -> tuple[float, float]:
+    """The fused C loop over every code at every temperature: (max |error|, mean)."""
+    p = static_params(design)
+    fp = np.array(p.floats, dtype=np.float64)
+    flin = np.array(p.flin, dtype=np.float64)
+    tref = p.ints[7] if design.temperature else 0
+    tc = design.temperature
+    ip = np.array([p.ints[4], p.ints[6], tref, tc.min_centi if tc else 0,
+                   tc.max_centi if tc else 0, 1 if design.constants.scale_mul >= 0 else -1],
+                  dtype=np.int32)
+    n = design.code_max - design.code_min + 1
+    tasks = [(t, start) for t in temps for start in range(0, n, CHUNK)]
+
+    def run(task: tuple[int | None, int]) -> tuple[float, float]:
+        t, start = task
+        out = np.zeros(3, dtype=np.float64)
+        lib.bench_static(ctypes.c_int32(design.code_min + start), ctypes.c_uint32(CHUNK),
+                         ctypes.c_int32(tref if t is None else t), fp.ctypes.data_as(_PD),
+                         flin.ctypes.data_as(_PD), ctypes.c_int32(flin.size),
+                         ip.ctypes.data_as(_P32), out.ctypes.data_as(_PD))
+        return float(out[0]), float(out[1])
+
+    with ThreadPoolExecutor(max_workers=threads) as pool:
+        results = list(pool.map(run, tasks))
+    return max(r[0] for r in results), sum(r[1] for r in results) / (n * len(temps))
+
+
+def _cli(*args: str) -> float:
+    t0 = time.perf_counter()
+    subprocess.run(args, check=True, capture_output=True)
+    return time.perf_counter() - t0
+
+
+def bench_spec(name: str, args: argparse.Namespace) -> None:
+    spec_path = EXAMPLES / f"{name}.toml"
+    design = cached_design(load_spec(spec_path))
+    temps = static_temperatures(design)
+    with tempfile.TemporaryDirectory() as tmp:
+        lib = build_bare(design, Path(tmp))
+        lib.ht_sweep_record.restype = ctypes.c_uint32
+        bound = design.static_error_bound_lsb
+        result: dict[str, tuple[float, float]] = {}
+
+        def py_static() -> None:
+            r = sweep_static(design, temps, bound=bound, threads=args.threads)
+            result["py"] = (r.max_error_lsb, r.mean_abs_error_lsb)
+
+        def bare_static() -> None:
+            result["c"] = c_static(lib, design, temps, args.threads)
+
+        tp, tc = _interleaved(py_static, bare_static, args.repeat)
+        evals = (design.code_max - design.code_min + 1) * len(temps)
+        same = "same max and mean |error|" if np.allclose(result["py"], result["c"],
+                                                           rtol=1e-9) else "FIGURES DIFFER"
+        print(f"{name}: static pass, {evals:,} evaluations ({len(temps)} temperatures), "
+              f"{args.threads} threads")
+        print(f"  ratio {tp / tc:5.2f}x   hosttool {tp:7.3f} s ({tp / evals * 1e9:5.2f} ns/eval)"
+              f"   fused C {tc:7.3f} s ({tc / evals * 1e9:5.2f} ns/eval)   {same}")
+
+        rng = np.random.default_rng(1)
+        codes = rng.integers(design.code_min, design.code_max + 1, args.samples)
+        t_ref = design.temperature.reference_centi if design.temperature else None
+        tt = None if t_ref is None else np.full(codes.size, t_ref, dtype=np.int64)
+        x32 = codes.astype(np.int32)
+        t32 = None if tt is None else tt.astype(np.int32)
+        out32 = np.empty(codes.size + 1, dtype=np.int32)
+
+        def py_chain() -> None:
+            run_integer(design, codes, tt)
+
+        def bare_chain() -> None:
+            lib.ht_sweep_record(x32.ctypes.data_as(_P32),
+                                None if t32 is None else t32.ctypes.data_as(_P32),
+                                ctypes.c_uint32(x32.size), out32.ctypes.data_as(_P32))
+
+        tp, tc = _interleaved(py_chain, bare_chain, args.repeat)
+        n = codes.size
+        print(f"  dynamic chain, {n:,} samples, one core")
+        print(f"  ratio {tp / tc:5.2f}x   hosttool {tp / n * 1e9:6.1f} ns/sample"
+              f"   ht_process in memory {tc / n * 1e9:6.1f} ns/sample")
+
+    exe = [sys.executable, "-m", "hosttool"]
+    verify = statistics.median(_cli(*exe, "verify", str(spec_path), "--json")
+                               for _ in range(args.repeat))
+    check = statistics.median(_cli(*exe, "check", str(spec_path)) for _ in range(args.repeat))
+    bare = statistics.median(_cli(sys.executable, "-c", "pass") for _ in range(args.repeat))
+    print(f"  whole verify {verify:6.2f} s   check {check * 1e3:5.0f} ms = bare Python start "
+          f"{bare * 1e3:4.0f} ms + {(check - bare) * 1e3:4.0f} ms")
+
+
+def bench_batch(args: argparse.Namespace) -> None:
+    from hosttool.production.batch import run_batch  # deferred: only with --lots
+    from hosttool.production.synthetic_lot import lot_csv, random_truth
+
+    spec_path = EXAMPLES / "hive_scale.toml"
+    design = cached_design(load_spec(spec_path))
+    sizes = [int(s) for s in args.lots.split(",")]
+    rng = np.random.default_rng(1)
+    truths = [random_truth(f"HS{i:06d}", rng) for i in range(max(sizes))]
+    print(f"batch, {spec_path.name}, {args.jobs} worker process(es), 13 readings per unit")
+    print(f"  {'units':>7}  {'seconds':>8}  {'units/s':>8}  {'ms/unit':>8}  result")
+    with tempfile.TemporaryDirectory() as tmp:
+        root = Path(tmp)
+        for n in sizes:
+            readings = root / f"lot{n}.csv"
+            readings.write_text(lot_csv(design, truths[:n], seed=n, start_utc=START_UTC))
+            out = root / f"out{n}"
+            t0 = time.perf_counter()
+            summary = run_batch(spec_path, readings, out=out, db=None, station="bench",
+                                recalibrate=False, cal_time=None, jobs=args.jobs)
+            elapsed = time.perf_counter() - t0
+            passed = sum(o.status == "pass" for o in summary.outcomes)
+            print(f"  {n:7d}  {elapsed:8.2f}  {n / elapsed:8.0f}  {elapsed / n * 1e3:8.3f}  "
+                  f"{passed} passed, exit {summary.exit_code}")
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=(__doc__ or "").splitlines()[0])
+    parser.add_argument("--repeat", type=int, default=5)
+    parser.add_argument("--samples", type=int, default=1_000_000)
+    parser.add_argument("--threads", type=int, default=len(os.sched_getaffinity(0)))
+    parser.add_argument("--jobs", type=int, default=2)
+    parser.add_argument("--lots", default="1000,10000,100000")
+    parser.add_argument("--skip-batch", action="store_true")
+    parser.add_argument("--specs", default="hive_scale,fatigue_coupon")
+    args = parser.parse_args()
+    print(f"load average before: {os.getloadavg()[0]:.2f} ({os.cpu_count()} cores)")
+    for name in args.specs.split(","):
+        bench_spec(name, args)
+    if not args.skip_batch:
+        bench_batch(args)
+    print(f"load average after: {os.getloadavg()[0]:.2f}")
+
+
+if __name__ == "__main__":
+    main()
