@@ -253,12 +253,18 @@ def image(spec: Path, calibration: Path, out: Path, merge: Path | None, as_bin: 
 @click.argument("spec", type=click.Path(dir_okay=False, path_type=Path))
 @click.argument("file", type=click.Path(dir_okay=False, path_type=Path))
 @click.option("--json", "as_json", is_flag=True, help="Print the block as one JSON object.")
+@click.option("--address", "address", metavar="ADDRESS",
+              help="Where the block sits (default: the spec's target.calblock_address).")
+@click.option("--base", "base", metavar="ADDRESS",
+              help="For a .bin flash readback: the address of its first byte.")
 @guarded
-def inspect(spec: Path, file: Path, as_json: bool) -> None:
-    """Decode and check the calibration block in FILE (HEX, or .bin from image --bin)."""
+def inspect(spec: Path, file: Path, as_json: bool, address: str | None,
+            base: str | None) -> None:
+    """Decode and check the calibration block in FILE (HEX image or full-flash readback, or
+    .bin: the area image --bin writes, or a readback with --base)."""
     from hosttool.commands.inspect import run_inspect
 
-    data, text = run_inspect(spec, file, as_json=as_json)
+    data, text = run_inspect(spec, file, as_json=as_json, address=address, base=base)
     if as_json:
         _emit_json(data)
     else:

@@ -116,6 +116,15 @@ class CalBlock:
     crc32: int
 
 
+#: The name of each bit of ``flags``.
+FLAG_NAMES = {FLAG_LINEARISATION: "linearisation", FLAG_TEMPERATURE: "temperature"}
+
+
+def flag_names(flags: int) -> list[str]:
+    """The names of the bits set in ``flags`` (an unknown bit as "bit N")."""
+    return [FLAG_NAMES.get(1 << bit, f"bit {bit}") for bit in range(8) if flags >> bit & 1]
+
+
 def design_flags(design: Design) -> int:
     """The block's flags for ``design``: which optional steps its constants feed."""
     return ((FLAG_LINEARISATION if design.linearisation else 0)

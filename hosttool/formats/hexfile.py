@@ -96,19 +96,36 @@ def block_image(design: Design, block: bytes, *, firmware: IntelHex | None = Non
     return merged
 
 
-def read_area(path: Path, design: Design) -> bytes:
-    """The bytes of the block's area from a HEX image (or, for a .bin file, the raw bytes
-    ``image --bin`` writes: the area itself); the block's bytes must all be present."""
-    address, size = block_area(design)
+def read_area(path: Path, design: Design, *, address: int | None = None,
+              base: int | None = None) -> bytes:
+    """The bytes of the block's area at ``address`` (default: the spec's block address)
+    from a HEX image, whole firmware or full-flash readback alike; or from a .bin file:
+    without ``base``, the raw area ``image --bin`` writes; with ``base``, a flash readback
+    whose first byte sits at that address (bytes past its end count as erased). The
+    block's bytes must all be present."""
+    spec_address, size = block_area(design)
+    if address is None:
+        address = spec_address
     if path.suffix.lower() == ".bin":
         try:
             data = path.read_bytes()
         except OSError as exc:
             raise InputError(f"{path}: cannot read: {exc.strerror}") from None
-        if len(data) != size:
-            raise InputError(f"{path}: {len(data)} bytes; a .bin image is the block's whole "
-                             f"area, {size} bytes (target.calblock_size)")
-        return data
+        if base is None:
+            if len(data) != size:
+                raise InputError(f"{path}: {len(data)} bytes; a .bin image is the block's "
+                                 f"whole area, {size} bytes (target.calblock_size), or a "
+                                 "flash readback: give its start address with --base")
+            return data
+        offset = address - base
+        if offset < 0 or offset + BLOCK_SIZE > len(data):
+            raise InputError(f"{path}: the calibration block (0x{address:08X}, {BLOCK_SIZE} "
+                             f"bytes) lies outside this readback (0x{base:08X} .. "
+                             f"0x{base + len(data):08X})")
+        return data[offset:offset + size].ljust(size, bytes([ERASED]))
+    if base is not None:
+        raise InputError(f"{path}: --base is for a .bin readback; Intel HEX carries its "
+                         "addresses")
     image = read_hex(path)
     present = image.todict()
     missing = next((a for a in range(address, address + BLOCK_SIZE) if a not in present), None)
@@ -143,7 +160,8 @@ def check_block(area: bytes, design: Design, source: str) -> CalBlock:
     return block
 
 
-def read_block(path: Path, design: Design) -> tuple[CalBlock, bytes]:
-    """Read the block's area from an image and check it (``check_block``)."""
-    area = read_area(path, design)
+def read_block(path: Path, design: Design, *, address: int | None = None,
+               base: int | None = None) -> tuple[CalBlock, bytes]:
+    """Read the block's area from an image (``read_area``) and check it (``check_block``)."""
+    area = read_area(path, design, address=address, base=base)
     return check_block(area, design, str(path)), area
