@@ -88,8 +88,7 @@ def main() -> None:
         root = Path(tmp)
         readings = root / "lot.csv"
         readings.write_text(lot_csv(design, truths, seed=1, start_utc=START))
-        server = root / "server"
-        server.mkdir()
+        server = Path(tempfile.mkdtemp(prefix="hosttool-bench-pg-"))
         uri, as_user, bindir = (args.db, [], None) if args.db else _start_server(server)
         try:
             lite = _time(spec, readings, root / "a", str(root / "line.sqlite"))
@@ -99,6 +98,7 @@ def main() -> None:
                 subprocess.run([*as_user, str(bindir / "pg_ctl"), "-D",
                                 str(server / "data"), "-m", "fast", "-w", "stop"],
                                check=False, capture_output=True)
+            shutil.rmtree(server, ignore_errors=True)
     print(f"{args.units} units, one process, 32 units per transaction")
     print(f"  SQLite      {lite:6.2f} s  {args.units / lite:7.0f} units/s")
     print(f"  PostgreSQL  {pg:6.2f} s  {args.units / pg:7.0f} units/s  "
