@@ -116,6 +116,21 @@ def test_four_stations_split_one_lot(tmp_path: Path, postgres_uri: str) -> None:
     assert len(rows) == 240 and _same(rows) == _clean(tmp_path, whole)
     by_station = {name: sum(r["station"] == name for r in rows) for name in files}
     assert by_station == {f"S{k}": 60 for k in range(4)}
+    # the lot report and a certificate come from the server's record as from a file
+    report = tmp_path / "l1.html"
+    made = subprocess.run([sys.executable, "-m", "hosttool", "record", "report", "L1", "--db",
+                           postgres_uri, "-o", str(report)], capture_output=True, text=True,
+                          timeout=300, check=False)
+    assert made.returncode == 0, made.stderr
+    assert "L1, 240 units, 240 passed" in made.stdout
+    page = report.read_text()
+    assert all(f"<td>S{k}</td><td class=\"num\">60</td>" in page for k in range(4))
+    cert = tmp_path / "c.html"
+    one = subprocess.run([sys.executable, "-m", "hosttool", "record", "certificate", "HV0100",
+                          "--db", postgres_uri, "-o", str(cert)], capture_output=True,
+                         text=True, timeout=300, check=False)
+    assert one.returncode == 0, one.stderr
+    assert "HV0100" in cert.read_text() and "<td>S1</td>" in cert.read_text()
 
 
 def test_kill_minus_9_mid_lot_then_rerun_completes(tmp_path: Path, postgres_uri: str) -> None:
