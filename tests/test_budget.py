@@ -124,9 +124,16 @@ def largest_gain(gains, peak_v, margin_pct, vref):
     return max(g for g in gains if peak_v * (1 + margin_pct / 100) <= vref / g)
 
 
-def noise_free_bits(vref, gain, noise_v_rms):
-    """log2(FSR / (6.6 RMS)), FSR = 2 Vref / G (common practice, no published source)."""
-    return math.log2((2 * vref / gain) / (6.6 * noise_v_rms))
+def total_noise(vref, gain, noise_v_rms, bits=24):
+    """The input noise and the rounding to a code, q / sqrt(12) (Widrow), volts RMS."""
+    q = 2 * vref / gain / 2 ** bits
+    return math.hypot(noise_v_rms, q / math.sqrt(12))
+
+
+def noise_free_bits(vref, gain, noise_v_rms, bits=24):
+    """log2(FSR / (6.6 RMS)), FSR = 2 Vref / G (common practice, no published source), the
+    RMS with the converter's own rounding."""
+    return math.log2((2 * vref / gain) / (6.6 * total_noise(vref, gain, noise_v_rms, bits)))
 
 
 def test_pressure_transducer_non_ratiometric():
@@ -152,11 +159,15 @@ def test_pressure_transducer_non_ratiometric():
     assert b.span_counts == pytest.approx(counts_per_bar * cap, rel=1e-12)
     assert b.noise_counts_rms == pytest.approx(noise_v / lsb, rel=1e-12)
     assert b.noise_free_bits == pytest.approx(noise_free_bits(vref, gain, noise_v), rel=1e-12)
-    assert b.effective_bits == pytest.approx(math.log2((2 * vref / gain) / noise_v), rel=1e-12)
-    # 6.6 x 0.05 uV over 0.3 mV/V/bar x 5 V = 2.2e-4 bar
-    assert b.noise_free_resolution == pytest.approx(6.6 * noise_v / (ro / cap * vex), rel=1e-12)
-    assert b.noise_free_resolution == pytest.approx(2.2e-4, rel=1e-12)
-    assert b.noise_free_divisions == pytest.approx(cap / 2.2e-4, rel=1e-12)
+    # ENOB as IEEE Std 1241 defines it (from memory): the noise over an ideal converter's
+    # q / sqrt(12); an ideal converter shows exactly its bits
+    total = total_noise(vref, gain, noise_v)
+    assert b.effective_bits == pytest.approx(
+        math.log2((2 * vref / gain) / (math.sqrt(12) * total)), rel=1e-12)
+    # 6.6 x 0.05 uV over 0.3 mV/V/bar x 5 V = 2.2e-4 bar (the rounding adds 0.03 %)
+    assert b.noise_free_resolution == pytest.approx(6.6 * total / (ro / cap * vex), rel=1e-12)
+    assert b.noise_free_resolution == pytest.approx(2.2e-4, rel=1e-3)
+    assert b.noise_free_divisions == pytest.approx(cap / b.noise_free_resolution, rel=1e-12)
     assert b.requested_divisions == pytest.approx(10000.0)
     assert b.full_scale_mv_per_v == pytest.approx(3.0, rel=1e-12)
     assert b.full_scale_output_mv == pytest.approx(15.0, rel=1e-12)
@@ -215,7 +226,16 @@ def test_full_poisson_bridge_with_four_wire_leads():
     worst = max(abs(ratio(m) - sens * m) for m in (-2000.0, 2000.0))
     assert b.nonlinearity_pct_fs == pytest.approx(100 * worst / (2000.0 * sens), rel=1e-6)
     assert b.noise_free_bits == pytest.approx(noise_free_bits(vex, gain, 0.04e-6), rel=1e-12)
-    assert b.noise_free_resolution == pytest.approx(6.6 * 0.04e-6 / (sens * vex), rel=1e-8)
+    assert b.noise_free_resolution == pytest.approx(
+        6.6 * total_noise(vex, gain, 0.04e-6) / (sens * vex), rel=1e-8)
+    # the excitation source sees the bridge and its two excitation leads
+    assert b.bridge_resistance_ohm == pytest.approx(rg + 2 * rl)
+    assert b.excitation_current_ma == pytest.approx(vex / (rg + 2 * rl) * 1e3, rel=1e-12)
+    # the codes the ADC reads at the ends, from the bridge equation (not slope x range)
+    lsb_ratio = lsb / vex
+    assert b.span_counts == pytest.approx((ends[1] - ends[0]) / lsb_ratio, rel=1e-9)
+    assert b.full_scale_counts == pytest.approx(max(abs(e) for e in ends) / lsb_ratio,
+                                                rel=1e-9)
     assert (b.range_min, b.range_max, b.unit) == (-2000.0, 2000.0, "ue")
     assert b.requested_divisions == pytest.approx(8000.0)
 
@@ -249,8 +269,11 @@ def test_bipolar_tension_link_20_bits_with_all_its_warnings():
     assert b.counts_per_unit == pytest.approx(counts_per_n, rel=1e-12)
     assert b.span_counts == pytest.approx(counts_per_n * 1000.0, rel=1e-12)
     assert b.full_scale_counts == pytest.approx(counts_per_n * 500.0, rel=1e-12)
-    assert b.noise_free_bits == pytest.approx(noise_free_bits(vref, gain, 0.2e-6), rel=1e-12)
-    assert b.noise_free_resolution == pytest.approx(nf_resolution, rel=1e-12)
+    assert b.noise_free_bits == pytest.approx(noise_free_bits(vref, gain, 0.2e-6, bits),
+                                              rel=1e-12)
+    assert b.noise_free_resolution == pytest.approx(nf_resolution, rel=1e-2)
+    assert b.noise_free_resolution == pytest.approx(
+        6.6 * total_noise(vref, gain, 0.2e-6, bits) / (ro / cap * vex), rel=1e-12)
     assert b.bridge_resistance_ohm == pytest.approx(350.0)
     assert b.zero_offset_mv_per_v == pytest.approx(-0.05, rel=1e-12)
     assert (b.range_min, b.range_max) == (-500.0, 500.0)
@@ -271,7 +294,11 @@ def test_bipolar_tension_link_20_bits_with_all_its_warnings():
     assert used < 25 and nf_resolution > 0.05
     assert len(b.warnings) == 4
     assert b.warnings[0].startswith(f"range used {used:.1f} % is below 25 %")
-    assert b.warnings[1].startswith(f"noise-free resolution {nf_resolution:.4g} N at the ADC "
+    # gain 64 is the top of this spec's set and the reading is ratiometric: no advice to
+    # raise either
+    assert "the gain is already the largest and the excitation cannot rise" in b.warnings[0]
+    assert b.warnings[1].startswith(f"noise-free resolution {b.noise_free_resolution:.4g} N "
+                                    "at the ADC "
                                     "is coarser than the requested 0.05 N")
     assert b.warnings[2].startswith("mains 50 Hz (+-1 %) lands at 9.5..10.5 Hz, inside the "
                                     "30 Hz signal band")

@@ -94,9 +94,11 @@ JSON_KEYS = {
     "resolution", "bridge_resistance_ohm", "excitation_v", "reference_v",
     "excitation_current_ma", "excitation_power_mw", "full_scale_mv_per_v",
     "full_scale_output_mv", "zero_offset_mv_per_v", "sensitivity_uv_per_v_per_unit",
-    "nonlinearity_pct_fs", "lead_desensitisation", "pga_gain", "pga_auto", "input_range_mv",
+    "nonlinearity_pct_fs", "sensor_nonlinearity_pct_fs", "lead_desensitisation", "pga_gain",
+    "pga_auto", "input_range_mv",
     "lsb_nv", "peak_input_mv", "range_used_pct", "counts_per_unit", "counts_per_lsb",
-    "full_scale_counts", "span_counts", "noise_counts_rms", "effective_bits",
+    "full_scale_counts", "span_counts", "noise_counts_rms", "total_noise_counts_rms",
+    "effective_bits",
     "noise_free_bits", "noise_free_counts", "noise_free_resolution", "noise_free_divisions",
     "requested_divisions", "signal_band_hz", "mains", "warnings",
 }
@@ -320,8 +322,9 @@ def test_no_warning_for_a_sound_spec(tmp_path):
 def test_warning_range_used_below_25_percent(tmp_path):
     # gain fixed at 16: 2.05 mV/V x 3.3 V = 6.765 mV of +-206.25 mV, 3.3 %
     lines = warnings_of(tmp_path, CELL.replace('pga_gain = "auto"', "pga_gain = 16"))
+    # gain 16 of a set that goes higher: the advice is the gain
     assert lines == ["warning: range used 3.3 % is below 25 %: resolution is thrown away "
-                     "(a higher gain or excitation would help)"]
+                     "(a higher PGA gain would help)"]
 
 
 def test_warning_range_used_above_95_percent(tmp_path):

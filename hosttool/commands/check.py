@@ -30,14 +30,19 @@ def budget_text(b: Budget, *, with_warnings: bool = True) -> str:
     sensor_rows: list[Row] = [
         ("measuring range", f"{num(b.range_min)} .. {num(b.range_max)} {u}", ""),
         ("output step", f"{num(b.resolution)} {u}", f"{b.requested_divisions:,.0f} steps"),
-        ("bridge resistance", f"{num(b.bridge_resistance_ohm)} ohm", ""),
+        ("bridge resistance", f"{num(b.bridge_resistance_ohm)} ohm",
+         "seen by the excitation, leads included"),
         ("excitation", f"{num(b.excitation_v)} V",
          f"{num(b.excitation_current_ma, 4)} mA, {num(b.excitation_power_mw, 4)} mW"),
         ("full-scale output", f"{num(b.full_scale_mv_per_v)} mV/V",
          f"{num(b.full_scale_output_mv)} mV"),
         ("zero offset (worst)", f"{num(b.zero_offset_mv_per_v)} mV/V", ""),
         ("sensitivity", f"{num(b.sensitivity_uv_per_v_per_unit)} uV/V per {u}", ""),
-        ("bridge nonlinearity", f"{num(b.nonlinearity_pct_fs, 4)} % FS", "exact vs tangent"),
+        ("bridge nonlinearity", f"{num(b.nonlinearity_pct_fs, 4)} % FS",
+         "exact bridge vs its tangent, % of the tangent's full scale"),
+        *([("sensor nonlinearity", f"{num(b.sensor_nonlinearity_pct_fs, 4)} % FS",
+            "datasheet figure, informative")] if b.sensor_nonlinearity_pct_fs is not None
+          else []),
         ("lead desensitisation", f"{b.lead_desensitisation:.6f}", "sensitivity factor"),
     ]
     adc_rows: list[Row] = [
@@ -47,6 +52,7 @@ def budget_text(b: Budget, *, with_warnings: bool = True) -> str:
         ("counts per unit", f"{num(b.counts_per_unit)} /{u}",
          f"{num(b.counts_per_lsb)} per output step"),
         ("noise", f"{num(b.noise_counts_rms, 4)} counts RMS",
+         f"{num(b.total_noise_counts_rms, 4)} with the code rounding; "
          f"{b.effective_bits:.2f} effective bits"),
         ("noise-free", f"{b.noise_free_bits:.2f} bits",
          f"{num(b.noise_free_counts, 4)} counts p-p (6.6 x RMS)"),

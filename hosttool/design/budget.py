@@ -22,7 +22,7 @@ from hosttool.physics.adc import (
     rejection_db,
 )
 from hosttool.physics.bridge import bridge_of, lead_desensitisation
-from hosttool.spec.schema import Spec
+from hosttool.spec.schema import Sensor, Spec, StrainBridge
 
 MAINS_HZ = (50.0, 60.0)
 #: Mains frequency may wander +-1 % (EN 50160 limit for 99.5 % of a year on
@@ -32,6 +32,8 @@ MAINS_TOLERANCE = 0.01
 MAINS_WARN_REJECTION_DB = 60.0
 RANGE_USED_LOW_PCT = 25.0
 RANGE_USED_HIGH_PCT = 95.0
+#: RMS of the rounding to one code, in codes: q / sqrt(12) (Widrow's quantisation model).
+QUANTISATION_RMS_COUNTS = 1.0 / math.sqrt(12.0)
 
 
 @dataclass(frozen=True)
@@ -65,7 +67,8 @@ class Budget:
     full_scale_output_mv: float
     zero_offset_mv_per_v: float
     sensitivity_uv_per_v_per_unit: float
-    nonlinearity_pct_fs: float
+    nonlinearity_pct_fs: float          # the bridge equation's, % of the tangent's full scale
+    sensor_nonlinearity_pct_fs: float | None   # the transducer's datasheet figure
     lead_desensitisation: float
     pga_gain: int
     pga_auto: bool
@@ -75,9 +78,10 @@ class Budget:
     range_used_pct: float
     counts_per_unit: float
     counts_per_lsb: float
-    full_scale_counts: float
-    span_counts: float
-    noise_counts_rms: float
+    full_scale_counts: float            # codes from zero to the farther end of the range
+    span_counts: float                  # codes from one end of the range to the other
+    noise_counts_rms: float             # the ADC's input noise alone, counts RMS
+    total_noise_counts_rms: float       # with the rounding to a code (q / sqrt 12)
     effective_bits: float
     noise_free_bits: float
     noise_free_counts: float
@@ -139,9 +143,16 @@ def compute_budget(spec: Spec) -> Budget:
     conv = Converter(bits=adc.bits, gain=gain, reference_v=exc.reference_v)
     counts_per_unit = abs(bridge.sensitivity) * exc.voltage_v / conv.lsb_v
     noise_counts = conv.noise_counts_rms(adc.noise_uv_rms)
-    noise_free_counts = PEAK_TO_PEAK_OVER_RMS * noise_counts
+    # the converter's own rounding is noise too: an ideal N-bit converter shows N bits
+    total_noise = math.hypot(noise_counts, QUANTISATION_RMS_COUNTS)
+    noise_free_counts = PEAK_TO_PEAK_OVER_RMS * total_noise
     full_range_counts = float(1 << adc.bits)
-    span_counts = counts_per_unit * (high - low)
+    # codes the ADC reads at the range's ends (exact bridge), not slope x range
+    counts_per_ratio = exc.voltage_v / conv.lsb_v
+    end_counts = [abs(float(bridge.ratio(m)) - bridge.zero_ratio) * counts_per_ratio
+                  for m in (low, high)]
+    span_counts = abs(float(bridge.ratio(high)) - float(bridge.ratio(low))) * counts_per_ratio
+    resistance = sensor.bridge_resistance_ohm + _excitation_leads_ohm(sensor)
     band = signal_band(spec)
     mains = _mains(spec, band)
     full_scale_ratio = float(bridge.ratio(high)) - bridge.zero_ratio
@@ -153,16 +164,17 @@ def compute_budget(spec: Spec) -> Budget:
         range_min=low,
         range_max=high,
         resolution=spec.output.resolution,
-        bridge_resistance_ohm=sensor.bridge_resistance_ohm,
+        bridge_resistance_ohm=resistance,
         excitation_v=exc.voltage_v,
         reference_v=exc.reference_v,
-        excitation_current_ma=exc.voltage_v / sensor.bridge_resistance_ohm * 1e3,
-        excitation_power_mw=exc.voltage_v ** 2 / sensor.bridge_resistance_ohm * 1e3,
+        excitation_current_ma=exc.voltage_v / resistance * 1e3,
+        excitation_power_mw=exc.voltage_v ** 2 / resistance * 1e3,
         full_scale_mv_per_v=full_scale_ratio * 1e3,
         full_scale_output_mv=full_scale_ratio * exc.voltage_v * 1e3,
         zero_offset_mv_per_v=bridge.zero_ratio * 1e3,
         sensitivity_uv_per_v_per_unit=bridge.sensitivity * 1e6,
         nonlinearity_pct_fs=bridge.nonlinearity_pct_fs(),
+        sensor_nonlinearity_pct_fs=getattr(sensor, "nonlinearity_pct_fs", None),
         lead_desensitisation=lead_desensitisation(sensor),
         pga_gain=gain,
         pga_auto=adc.pga_gain is None,
@@ -172,10 +184,11 @@ def compute_budget(spec: Spec) -> Budget:
         range_used_pct=range_used,
         counts_per_unit=counts_per_unit,
         counts_per_lsb=counts_per_unit * spec.output.resolution,
-        full_scale_counts=counts_per_unit * max(abs(low), abs(high)),
+        full_scale_counts=max(end_counts),
         span_counts=span_counts,
         noise_counts_rms=noise_counts,
-        effective_bits=math.log2(full_range_counts / noise_counts),
+        total_noise_counts_rms=total_noise,
+        effective_bits=math.log2(full_range_counts / (math.sqrt(12.0) * total_noise)),
         noise_free_bits=math.log2(full_range_counts / noise_free_counts),
         noise_free_counts=noise_free_counts,
         noise_free_resolution=noise_free_counts / counts_per_unit,
@@ -185,10 +198,27 @@ def compute_budget(spec: Spec) -> Budget:
         mains=mains,
         warnings=(),
     )
-    return _with_warnings(budget)
+    return _with_warnings(budget, spec)
 
 
-def _with_warnings(b: Budget) -> Budget:
+def _excitation_leads_ohm(sensor: Sensor) -> float:
+    """Lead resistance in series with the bridge as the excitation source sees it: the two
+    excitation leads of a strain bridge (a six-wire bridge senses, but still carries the
+    current through them); none declared for a transducer."""
+    return 2.0 * sensor.lead_resistance_ohm if isinstance(sensor, StrainBridge) else 0.0
+
+
+def _range_advice(b: Budget, spec: Spec) -> str:
+    """What would use more of the range, for this spec."""
+    if b.pga_gain < max(spec.adc.pga_gains):
+        return "a higher PGA gain would help"
+    if b.excitation_v < spec.adc.reference_max_v and not spec.excitation.ratiometric:
+        return "the gain is the largest; a higher excitation would help"
+    return ("the gain is already the largest and the excitation cannot rise: a sensor with "
+            "more output, or a converter with a smaller input range")
+
+
+def _with_warnings(b: Budget, spec: Spec) -> Budget:
     warnings = []
     if b.range_used_pct > 100.0:
         warnings.append(f"peak input {b.peak_input_mv:.4g} mV overloads the ADC range "
@@ -199,7 +229,12 @@ def _with_warnings(b: Budget) -> Budget:
                         f"{RANGE_USED_HIGH_PCT:g} %: little overload margin")
     elif b.range_used_pct < RANGE_USED_LOW_PCT:
         warnings.append(f"range used {b.range_used_pct:.1f} % is below {RANGE_USED_LOW_PCT:g} %: "
-                        "resolution is thrown away (a higher gain or excitation would help)")
+                        f"resolution is thrown away ({_range_advice(b, spec)})")
+    code_units = 1.0 / b.counts_per_unit
+    if b.resolution < code_units:
+        warnings.append(f"output.resolution {b.resolution:g} {b.unit} is finer than one ADC "
+                        f"code ({code_units:.4g} {b.unit}): the last digit only follows the "
+                        "filters' averaging of noise, not the converter")
     if b.noise_free_resolution > b.resolution:
         warnings.append(f"noise-free resolution {b.noise_free_resolution:.4g} {b.unit} at the "
                         f"ADC is coarser than the requested {b.resolution:g} {b.unit} "

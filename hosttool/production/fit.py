@@ -545,12 +545,13 @@ def _criteria(ctx: CalibrationContext, u: UnitReadings, figures: dict[str, float
     temp = spec.temperature
     if temp is not None:
         rows += [
-            ("zero_tc", "zero temperature coefficient", size("zero_tc_ppm_fs_per_c"),
+            # signed, as the unit drifts (its limit bounds the magnitude)
+            ("zero_tc", "zero temperature coefficient", figures["zero_tc_ppm_fs_per_c"],
              temp.max_zero_tc_ppm_fs_per_c, "ppm FS/C", "temperature.max_zero_tc_ppm_fs_per_c"),
-            ("span_tc", "span temperature coefficient", size("span_tc_ppm_per_c"),
+            ("span_tc", "span temperature coefficient", figures["span_tc_ppm_per_c"],
              temp.max_span_tc_ppm_per_c, "ppm/C", "temperature.max_span_tc_ppm_per_c")]
     return tuple(Criterion(key, label, value, limit, unit_, source,
-                           limit is None or (value is not None and value <= limit))
+                           limit is None or (value is not None and abs(value) <= limit))
                  for key, label, value, limit, unit_, source in rows)
 
 
