@@ -229,6 +229,11 @@ CASES: list[Case] = [
     Case("station-nel", ("batch", S, LOT, "--out", "lot", "--station", "bench\x852"),
          "--station: 'bench\\x852' must be a name without control characters",
          absent=("lot",)),
+    Case("lot-line-separator", ("batch", S, LOT, "--out", "lot", "--lot", "A\u2028B"),
+         "--lot: 'A\\u2028B' must be a name without control characters", absent=("lot",)),
+    Case("operator-escape", ("batch", S, LOT, "--out", "lot", "--operator", "\x1b[31mX"),
+         "--operator: '\\x1b[31mX' must be a name without control characters",
+         absent=("lot",)),
     Case("verify-samples-huge", ("verify", S, "--samples", "99999999999999999999999"),
          "--samples: 99999999999999999999999 is more than the 100000000 this tool runs (the "
          "codes and outputs of each test are held in memory)"),
@@ -505,3 +510,25 @@ def test_edited_verdict_is_refused_by_every_reader(good: dict[str, bytes], tmp_p
                                f"{CAL_AGAIN}\n")
     assert not (tmp_path / "x.hex").exists() and not (tmp_path / "out").exists()
     shutil.rmtree(tmp_path, ignore_errors=True)
+
+
+@pytest.mark.slow
+def test_postgres_record_lacking_a_column_is_one_line(good: dict[str, bytes], tmp_path: Path,
+                                                      monkeypatch: pytest.MonkeyPatch,
+                                                      postgres_uri: str) -> None:
+    """Source: a table made with psycopg on the suite's real PostgreSQL server."""
+    import psycopg
+
+    from hosttool.production.record import COLUMNS, SCHEMA_VERSION
+
+    with psycopg.connect(postgres_uri, autocommit=True) as db:
+        db.execute("CREATE TABLE calibrations (id BIGINT PRIMARY KEY, serial TEXT)")
+    _write(tmp_path, good, {})
+    monkeypatch.chdir(tmp_path)
+    done = CliRunner().invoke(main, ["batch", S, LOT, "--out", "out", "--db", postgres_uri])
+    assert done.exit_code == 2, done.output
+    lacking = next(c for c in COLUMNS if c != "serial")
+    assert done.stderr.startswith("hosttool: error: ") and done.stderr.count("\n") == 1
+    assert done.stderr.endswith(f": calibrations.{lacking}: no such column: not a production "
+                                f"record of schema {SCHEMA_VERSION}\n"), done.stderr
+    assert not any(p.suffix == ".hex" for p in (tmp_path / "out").iterdir())

@@ -394,9 +394,10 @@ def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: str | Path
               progress: Callable[[Iterable[Prepared], int], Iterable[Prepared]] | None = None
               ) -> BatchSummary:
     """Calibrate, image and record every unit of a readings file."""
-    if station is not None and (control_character(station) or not station.strip()):
-        raise InputError(f"--station: {shown(station)} must be a name without control "
-                         "characters")
+    for option, name in (("--station", station), ("--lot", lot), ("--operator", operator)):
+        if name and (control_character(name) or not name.strip()):
+            raise InputError(f"{option}: {shown(name)} must be a name without control "
+                             "characters")
     design = cached_design(load_spec(spec_path))
     ctx = CalibrationContext.of(design)
     block_area(design)

@@ -69,6 +69,9 @@ class PostgresRecord:
         self.db.execute("CREATE TABLE IF NOT EXISTS record_info "
                         "(key TEXT PRIMARY KEY, value TEXT NOT NULL)")
         found = self.db.execute("SELECT value FROM record_info WHERE key = 'schema'").fetchone()
+        if found is not None and not str(found[0]).isdigit():
+            raise OutputError(f"{self.where}: record_info.schema: {found[0]!r} is not a schema "
+                              "version: not a production record of this tool")
         version = SCHEMA_VERSION if found is None else int(found[0])
         if version > SCHEMA_VERSION:
             raise OutputError(f"{self.where}: record schema {version}, this tool writes "
@@ -77,6 +80,13 @@ class PostgresRecord:
             for old in range(version, SCHEMA_VERSION):
                 for statement in MIGRATIONS[old]:
                     self.db.execute(statement.encode())
+        have = {row[0] for row in self.db.execute(
+            "SELECT column_name FROM information_schema.columns WHERE table_name = "
+            "'calibrations' AND table_schema = current_schema()")}
+        lacking = [c for c in ("id", *COLUMNS) if c not in have]
+        if have and lacking:
+            raise OutputError(f"{self.where}: calibrations.{lacking[0]}: no such column: not "
+                              f"a production record of schema {SCHEMA_VERSION}")
         table = TABLE.format(id="BIGINT GENERATED ALWAYS AS IDENTITY PRIMARY KEY")
         for statement in iter_statements(table):
             self.db.execute(statement.encode())
