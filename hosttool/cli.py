@@ -62,6 +62,9 @@ class OneLineGroup(click.Group):
         except click.exceptions.Exit as exc:          # --help, --version
             sys.exit(exc.exit_code)
         except click.ClickException as exc:
+            if type(exc).__name__ == "NoArgsIsHelpError":   # click >= 8.2: bare command
+                exc.show()                                    # its help page, as click does
+                sys.exit(exc.exit_code)
             click.echo(f"hosttool: error: {usage_line(exc)}", err=True)
             sys.exit(2)
         except click.Abort:

@@ -481,6 +481,14 @@ def test_usage_help_is_unchanged() -> None:
     assert done.exit_code == 0 and done.stdout.startswith("Usage: hosttool check [OPTIONS] SPEC")
 
 
+def test_bare_command_still_shows_its_help() -> None:
+    """``hosttool`` and ``hosttool record`` without a command print click's help page."""
+    for argv in ([], ["record"]):
+        done = CliRunner().invoke(main, argv, prog_name="hosttool")
+        assert done.output.startswith("Usage: hosttool"), done.output
+        assert "Commands:" in done.output and "hosttool: error" not in done.output
+
+
 def test_python_dash_m_usage_error_is_one_line(tmp_path: Path) -> None:
     """The real process: click's own usage errors become one line and exit 2."""
     import subprocess
