@@ -93,6 +93,16 @@ S, G = "spec.toml", "gauge.toml"
 LOT, CAL = "lot.csv", "cal.json"
 TIME_FORMS = "YYYY-MM-DDThh:mm:ssZ or YYYY-MM-DDThh:mm:ss+00:00 (e.g. 2025-03-04T08:15:00Z)"
 CAL_AGAIN = "calibrate the unit again"
+#: A register of reference standards (invented), for the batch --register cases.
+REGISTER = """[[standard]]
+id = "M20-03"
+kind = "mass"
+nominal = 20.0
+unit = "kg"
+uncertainty = 0.0004
+certificate = "LAB-26-0412"
+due = 2027-03-01
+"""
 
 CASES: list[Case] = [
     # ------------------------------------------------------------------ spec: numbers
@@ -234,6 +244,16 @@ CASES: list[Case] = [
     Case("operator-escape", ("batch", S, LOT, "--out", "lot", "--operator", "\x1b[31mX"),
          "--operator: '\\x1b[31mX' must be a name without control characters",
          absent=("lot",)),
+    Case("register-id-newline", ("batch", S, LOT, "--out", "lot", "--register", "reg.toml"),
+         "reg.toml: standard[0]: id: control character U+000A in 'M20-03\\n'",
+         {"reg.toml": REGISTER.replace('"M20-03"', '"M20-03\\n"')}, absent=("lot",)),
+    Case("register-certificate-del", ("batch", S, LOT, "--out", "lot", "--register",
+                                      "reg.toml"),
+         "reg.toml: standard[0]: certificate: control character U+007F in 'LAB\\x7f'",
+         {"reg.toml": REGISTER.replace('"LAB-26-0412"', '"LAB\\u007f"')}, absent=("lot",)),
+    Case("register-nominal-inf", ("batch", S, LOT, "--out", "lot", "--register", "reg.toml"),
+         "reg.toml: standard[0]: nominal: expected a finite number",
+         {"reg.toml": REGISTER.replace("nominal = 20.0", "nominal = inf")}, absent=("lot",)),
     Case("verify-samples-huge", ("verify", S, "--samples", "99999999999999999999999"),
          "--samples: 99999999999999999999999 is more than the 100000000 this tool runs (the "
          "codes and outputs of each test are held in memory)"),

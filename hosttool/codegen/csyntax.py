@@ -49,7 +49,7 @@ def c_prefix(name: str, *, field: str = "name") -> str:
     reserved word, holds ``__`` or ends in ``_`` (reserved in C++ or forming ``__`` before a
     suffix), or whose prefix falls in a name space the C library reserves.
     """
-    if not _IDENTIFIER.match(name) or name.startswith("_"):
+    if not _IDENTIFIER.fullmatch(name) or name.startswith("_"):
         raise DesignError(f"{field}: {name!r} is not a C identifier starting with a letter")
     if name.lower() in RESERVED_WORDS:
         raise DesignError(f"{field}: {name!r} is a C or C++ reserved word; choose another "
@@ -70,7 +70,7 @@ def c_identifier(text: str) -> str:
 
     For names the tool itself composes (struct members, suffixes): a failure is a bug.
     """
-    if not _IDENTIFIER.match(text) or text in RESERVED_WORDS or "__" in text:
+    if not _IDENTIFIER.fullmatch(text) or text in RESERVED_WORDS or "__" in text:
         raise AssertionError(f"not a usable C identifier: {text!r}")
     return text
 

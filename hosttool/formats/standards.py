@@ -16,6 +16,7 @@ Every error names the file, the entry and the key.
 from __future__ import annotations
 
 import datetime as dt
+import math
 import re
 import tomllib
 from dataclasses import dataclass
@@ -23,8 +24,9 @@ from pathlib import Path
 from typing import Any
 
 from hosttool.errors import InputError
+from hosttool.util.text import control_character, shown
 
-ID_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]{0,31}$")
+ID_RE = re.compile(r"[A-Za-z0-9][A-Za-z0-9._-]{0,31}")  # full match
 KEYS = ("id", "kind", "nominal", "unit", "uncertainty", "certificate", "due")
 
 
@@ -63,12 +65,17 @@ def _entry(item: Any, where: str) -> Standard:
     for key in ("id", "kind", "unit", "certificate"):
         if not isinstance(item[key], str) or not item[key].strip():
             raise InputError(f"{where}: {key}: expected a non-empty string")
-    if not ID_RE.match(item["id"]):
+        bad = control_character(item[key])
+        if bad is not None:
+            raise InputError(f"{where}: {key}: control character {bad} in {shown(item[key])}")
+    if not ID_RE.fullmatch(item["id"]):
         raise InputError(f"{where}: id: {item['id']!r} must be 1 to 32 letters, digits, '.', "
                          "'_' or '-', starting with a letter or digit")
     for key in ("nominal", "uncertainty"):
         if isinstance(item[key], bool) or not isinstance(item[key], int | float):
             raise InputError(f"{where}: {key}: expected a number")
+        if not (abs(item[key]) <= 1e300 and math.isfinite(item[key])):
+            raise InputError(f"{where}: {key}: expected a finite number")
     if item["uncertainty"] < 0:
         raise InputError(f"{where}: uncertainty: {item['uncertainty']} is negative")
     due = item["due"]
@@ -88,6 +95,10 @@ def load_standards(path: Path) -> dict[str, Standard]:
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"{path}: cannot read: {exc}") from None
     except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"{path}: not valid TOML: {exc}") from None
+    except RecursionError:
+        raise InputError(f"{path}: not valid TOML: nested too deeply") from None
+    except ValueError as exc:          # an integer of more digits than Python reads
         raise InputError(f"{path}: not valid TOML: {exc}") from None
     extra = [k for k in data if k != "standard"]
     if extra:

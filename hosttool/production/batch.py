@@ -340,7 +340,7 @@ def clear_temporaries(st: Station) -> int:
     """Remove the temporary files a killed run left; returns how many. Done under the
     folder lock: every image write happens under it, so none is in progress."""
     with st.folder_lock():
-        stale = [e.path for e in os.scandir(st.folder) if _TEMPORARY.match(e.name)]
+        stale = [e.path for e in os.scandir(st.folder) if _TEMPORARY.fullmatch(e.name)]
         for path in stale:
             Path(path).unlink(missing_ok=True)
     return len(stale)
