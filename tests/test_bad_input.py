@@ -402,10 +402,12 @@ CASES: list[Case] = [
     # ------------------------------------------------------------------ images
     Case("bin-200-bytes", ("inspect", S, "unit.bin"),
          "unit.bin: 200 bytes; a .bin image is the block's whole area, 128 bytes "
-         "(target.calblock_size)", {"unit.bin": "x" * 200}),
+         "(target.calblock_size), or a flash readback: give its start address with "
+         "--base", {"unit.bin": "x" * 200}),
     Case("bin-short", ("inspect", S, "unit.bin"),
          "unit.bin: 3 bytes; a .bin image is the block's whole area, 128 bytes "
-         "(target.calblock_size)", {"unit.bin": "abc"}),
+         "(target.calblock_size), or a flash readback: give its start address with "
+         "--base", {"unit.bin": "abc"}),
     Case("hex-garbage", ("inspect", S, "unit.hex"),
          "unit.hex: not a valid Intel HEX file: Hex file contains invalid record at line 1",
          {"unit.hex": "hello\n"}),
