@@ -269,3 +269,43 @@ def test_group_write_flushes_its_own_files_not_the_machine(tmp_path: Path,
     atomic_group.write_group(tmp_path, files)
     assert len(synced) == len(files) + 1          # every image, then the folder
     assert {p.name: p.read_bytes() for p in tmp_path.iterdir()} == files
+
+
+@pytest.mark.parametrize("name", list(DESIGNS))
+def test_chain_compiled_for_its_shape_equals_the_generic_loop(
+        name: str, tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    # the generic loop is itself held to the contract above; the specialised one must give
+    # every output, flag, peak and saturation count it gives, on records with rail codes
+    d = DESIGNS[name]
+    rng = np.random.default_rng(9)
+    codes = rng.integers(d.code_min, d.code_max + 1, 50000)
+    codes[::701] = d.code_min
+    codes[3::907] = d.code_max
+    temps = None if d.temperature is None else rng.integers(
+        d.temperature.min_centi - 500, d.temperature.max_centi + 500, codes.size)
+    monkeypatch.setenv("HOSTTOOL_CACHE_DIR", "off")
+    generic = run_integer(d, codes, temps)
+    monkeypatch.setenv("HOSTTOOL_CACHE_DIR", str(tmp_path))
+    special = run_integer(d, codes, temps)
+    from hosttool.design.model import _specialised_chain, cascade_arrays
+
+    assert _specialised_chain(cascade_arrays(d)) is not None
+    np.testing.assert_array_equal(special.output, generic.output)
+    np.testing.assert_array_equal(special.rail, generic.rail)
+    np.testing.assert_array_equal(special.clamped, generic.clamped)
+    assert special.peaks == generic.peaks and special.saturations == generic.saturations
+
+
+def test_an_edited_kernel_file_is_rewritten_not_run(tmp_path: Path) -> None:
+    from hosttool.design import chain
+
+    shape = (("fir", 3, 2), ("biquad", 0, 1))
+    folder = tmp_path / "kernels"
+    first = chain.compiled_chain(shape, folder)
+    path = next(folder.glob("chain_*.py"))
+    good = path.read_bytes()
+    path.write_text("raise SystemExit('edited kernel ran')\n")
+    chain._LOADED.clear()
+    again = chain.compiled_chain(shape, folder)
+    assert path.read_bytes() == good
+    assert callable(first) and callable(again)

@@ -21,15 +21,20 @@ not imported here: verifying a cached design needs no filter design.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+from hosttool.design.cached import cache_folder
+from hosttool.design.chain import compiled_chain
 from hosttool.design.compiled import njit
 from hosttool.design.filters import FirStage
 from hosttool.design.fixedpoint import INT32_MAX, INT32_MIN
 from hosttool.design.resolve import LIN_FRAC, Design
+from hosttool.errors import HostToolError
 
 I64 = NDArray[np.int64]
 F64 = NDArray[np.float64]
@@ -420,15 +425,38 @@ def cascade_arrays(design: Design) -> Cascade:
 # ----------------------------------------------------------------------------- integer
 
 
+def _specialised_chain(c: Cascade) -> Callable[..., Any] | None:
+    """The chain compiled for this cascade's shape (chain.py), or None without a cache
+    folder to keep it in (the generic loop then runs: same arithmetic, slower)."""
+    folder = cache_folder()
+    if folder is None:
+        return None
+    shape = tuple(("fir", int(b[1]), int(b[3])) if k == BLOCK_FIR else ("biquad", 0, 1)
+                  for k, b in zip(c.kinds, c.blocks, strict=True))
+    try:
+        return compiled_chain(shape, folder.parent / "kernels")
+    except (OSError, HostToolError):
+        return None
+
+
 def run_integer(design: Design, codes: ArrayLike,
                 temps_centi: ArrayLike | None = None) -> IntegerRun:
     """The bit-exact integer pipeline on a record of raw codes, from reset."""
     x, t = _inputs(design, codes, temps_centi)
     p = static_params(design)
     c = cascade_arrays(design)
-    out, peaks, sats, flags = _chain_run(x, _NO_TEMPS if t is None else t, t is not None,
-                                         p.ints, p.lin, c.kinds, c.blocks, c.taps,
-                                         design.decimation)
+    tt = _NO_TEMPS if t is None else t
+    specialised = _specialised_chain(c)
+    if specialised is not None:
+        shifts = tuple(int(b[2]) if k == BLOCK_FIR else int(b[5])
+                       for k, b in zip(c.kinds, c.blocks, strict=True))
+        coeffs = tuple(int(v) for k, b in zip(c.kinds, c.blocks, strict=True)
+                       if k == BLOCK_BIQUAD for v in b[:5]) or (0,)
+        out, peaks, sats, flags = specialised(x, tt, t is not None, p.ints, p.lin, c.taps,
+                                              shifts or (0,), coeffs, design.decimation)
+    else:
+        out, peaks, sats, flags = _chain_run(x, tt, t is not None, p.ints, p.lin, c.kinds,
+                                             c.blocks, c.taps, design.decimation)
     run = IntegerRun(output=out, rail=(flags & _FLAG_RAIL) != 0,
                      clamped=(flags & _FLAG_CLAMPED) != 0)
     nb = len(c.names)
