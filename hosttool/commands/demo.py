@@ -65,7 +65,7 @@ def run_lot(design: Design, spec_path: Path, folder: Path) -> Iterator[str]:
     data, text = run_inspect(spec_path, first, as_json=False)
     write_atomic(lot / "inspect.txt", text)
     yield (f"inspect {lot / 'inspect.txt'}  ({first.name}: serial {data['serial']}, CRC-32 "
-           f"{data['crc32']} ok, spec hash matches)")
+           f"{data['crc32']} ok, format identity {data['format_id']} matches)")
 
 
 def _new_folder(base: Path) -> Path:
