@@ -28,7 +28,11 @@ SAMPLES = 200_000
 def test_examples_pass_with_every_error_within_its_bound(name: str) -> None:
     design = make_design(load_spec(EXAMPLES / f"{name}.toml"))
     v = verify_design(design, samples=SAMPLES, seed=3)
-    assert v.passed, v.reasons
+    # the coupon's mains notches have constant-input limit cycles (test_limit_cycles.py):
+    # they are its only reasons to fail
+    cycles = [s.failure for s in v.limit_cycles.sections if s.limit_cycle]
+    assert list(v.reasons) == cycles, v.reasons
+    assert bool(cycles) == (name == "fatigue_coupon")
     assert v.static.codes == 1 << design.spec.adc.bits
     assert v.static.max_error_lsb <= v.static.bound_lsb
     assert v.static.monotonic
@@ -71,12 +75,20 @@ def test_budget_too_tight_fails_with_exit_1(tmp_path: Path) -> None:
 def test_json_output_has_documented_keys() -> None:
     result = CliRunner().invoke(main, ["verify", str(EXAMPLES / "fatigue_coupon.toml"),
                                        "--samples", "20000", "--json"])
-    assert result.exit_code == 0, result.output
+    assert result.exit_code == 1, result.output  # limit cycles in its notches
     data = json.loads(result.stdout)
     for key in ("passed", "reasons", "engines", "static", "tests", "headroom",
-                "error_bound_lsb", "ideal_error_bound_lsb", "budget", "budget_used"):
+                "error_bound_lsb", "ideal_error_bound_lsb", "budget", "budget_used",
+                "limit_cycles"):
         assert key in data
-    assert data["passed"] is True
+    assert data["passed"] is False
+    cycles = data["limit_cycles"]
+    assert cycles["passed"] is False and cycles["proven"] is True
+    assert [s["name"] for s in cycles["sections"]] == ["stage2.section1", "stage3.section1"]
+    for section in cycles["sections"]:
+        assert section["method"] == "exhaustive search" and section["limit_cycle"] is True
+        assert section["cycles"][0]["period"] in (4, 5)
+        assert set(section["started_by_step"]) == {"level_lsb", "period", "amplitude_lsb"}
     test = data["tests"][0]
     for key in ("name", "max_error_lsb", "rms_error_lsb", "max_error", "bound_lsb", "sqnr_db",
                 "enob_bits", "saturations", "passed"):
@@ -126,6 +138,7 @@ def test_report_is_self_contained_html(tmp_path: Path) -> None:
     assert result.exit_code == 0
     text = report.read_text()
     assert text.count("data:image/png;base64,") == 5      # with the end-to-end plot
+    assert "no limit cycle, dead band &lt;= 0 LSB" in text
     assert "http://" not in text and "https://" not in text  # nothing fetched from outside
     assert "legal-metrology authority" in text
 
@@ -135,7 +148,8 @@ def test_failing_spec_without_budget_is_still_verified() -> None:
     text = re.sub(r"\[calibration\].*?span_tolerance_pct = 5.0\n", "", text, flags=re.S)
     design = make_design(parse_spec(text, "nobudget.toml"))
     v = verify_design(design, samples=20000)
-    assert v.budget_units is None and v.passed
+    assert v.budget_units is None
+    assert all("limit cycle" in r for r in v.reasons)  # the notches' cycles only
 
 
 def _unit_calibration(tmp_path: Path) -> Path:

@@ -17,6 +17,7 @@ from hosttool.formats.caljson import load_calibration
 from hosttool.spec.schema import load_spec
 from hosttool.util.tables import Row, sections, table
 from hosttool.verify.endtoend import EndToEnd
+from hosttool.verify.limit_cycles import report_json as limit_cycles_json
 from hosttool.verify.proof import Engine, Verification, verify_design
 from hosttool.verify.sweep import SettledEngine
 
@@ -65,6 +66,7 @@ def verify_json(v: Verification) -> dict[str, Any]:
                    "passed": t.passed} for t in v.tests],
         "headroom": [{"name": n.name, "bound": n.bound, "word": n.word,
                       "headroom_bits": n.headroom_bits} for n in d.all_nodes],
+        "limit_cycles": limit_cycles_json(v.limit_cycles),
     }
 
 
@@ -118,10 +120,14 @@ def verify_text(v: Verification) -> str:
         ("verdict", "-" if e.passed is None else ("pass" if e.passed else "FAIL"),
          f"{e.measurand.size} measurands x {max(1, len(e.temperatures_c))} temperatures"),
     ]
+    cycle_rows: list[Row] = [(sec.name, sec.method, f"{sec.statement}; region {sec.region}, "
+                              f"{sec.rounds} rounds") for sec in v.limit_cycles.sections]
+    cycle_rows.append(("all sections", "", v.limit_cycles.statement))
     return sections([f"{d.spec.name}: verification (seed {v.seed})",
                      table("End to end: reading against the measurand", accuracy_rows),
                      table("Static path, exhaustive", static_rows),
                      table("Dynamic tests (max error / proven bound)", test_rows),
+                     table("Limit cycles and dead band (chain LSB)", cycle_rows),
                      table("Verdict", summary)])
 
 

@@ -46,6 +46,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
@@ -58,6 +59,8 @@ from hosttool.design.resolve import Design
 MAX_ROUNDS = 20_000
 #: ... or this many intervals of e held at once.
 MAX_INTERVALS = 400_000
+#: Cycles listed per section in JSON (largest amplitude first).
+JSON_CYCLES = 8
 #: Step inputs tried from reset to find an input that starts a cycle that was found.
 STEP_LEVELS = 2048
 
@@ -122,6 +125,14 @@ class SectionResult:
         return any(c.period > 1 for c in self.cycles)
 
     @property
+    def failure(self) -> str:
+        """The verdict's reason when a limit cycle was found."""
+        c = self.cycles[0]
+        return (f"{self.name}: limit cycle with a constant input, period {c.period}, "
+                f"amplitude {c.amplitude} chain LSB (<= {self.amplitude_output_lsb:.2g} "
+                "output LSB)")
+
+    @property
     def statement(self) -> str:
         """One line: the proof, the cycle found, or why nothing is proven."""
         if not self.proven:
@@ -168,7 +179,9 @@ class LimitCycleReport:
             return "no recursive section: no limit cycle, dead band <= 0 LSB"
         found = [s for s in self.sections if s.limit_cycle]
         if found:
-            return "; ".join(f"{s.name}: {s.statement}" for s in found)
+            return "LIMIT CYCLE in " + ", ".join(
+                f"{s.name} (period {s.cycles[0].period}, amplitude {s.cycles[0].amplitude} "
+                f"chain LSB)" for s in found)
         open_ = [s for s in self.sections if not s.proven]
         if open_:
             return "; ".join(f"{s.name}: {s.statement}" for s in open_)
@@ -372,3 +385,27 @@ def analyse_design(design: Design) -> LimitCycleReport:
                 results.append(analyse_section(f"stage{i + 1}.section{j + 1}", section,
                                                next(gains)))
     return LimitCycleReport(tuple(results))
+
+
+def report_json(report: LimitCycleReport) -> dict[str, Any]:
+    """The ``limit_cycles`` object of ``verify --json`` (docs/json.md)."""
+    return {
+        "statement": report.statement, "passed": report.passed, "proven": report.proven,
+        "dead_band_lsb": report.dead_band_lsb,
+        "sections": [{
+            "name": s.name, "a1": s.a_int[0], "a2": s.a_int[1], "frac_bits": s.frac,
+            "method": s.method, "region": s.region, "box_lsb": s.box,
+            "noise_l1": s.noise_l1, "rounds": s.rounds, "proven": s.proven,
+            "limit_cycle": s.limit_cycle, "dead_band_lsb": s.dead_band_lsb,
+            "statement": s.statement, "reason_not_proven": s.reason or None,
+            "amplitude_output_lsb": s.amplitude_output_lsb,
+            "cycles_found": len(s.cycles),
+            "cycles": [{"period": c.period, "amplitude_lsb": c.amplitude,
+                        "outputs_lsb": list(c.outputs),
+                        "start": {"u1": c.start[0], "u2": c.start[1], "e": c.start[2]}}
+                       for c in s.cycles[:JSON_CYCLES]],
+            "started_by_step": None if s.started_by is None else {
+                "level_lsb": s.started_by.level, "period": s.started_by.period,
+                "amplitude_lsb": s.started_by.amplitude},
+        } for s in report.sections],
+    }

@@ -22,6 +22,7 @@ from hosttool.design.model import run_integer, run_reference
 from hosttool.design.resolve import Design
 from hosttool.errors import InputError
 from hosttool.verify.endtoend import EndToEnd, end_to_end, error_budget
+from hosttool.verify.limit_cycles import LimitCycleReport, analyse_design
 from hosttool.verify.sweep import STATIC_BINS, SettledEngine, sweep_static
 
 I64 = NDArray[np.int64]
@@ -95,6 +96,7 @@ class Verification:
     seed: int
     reasons: tuple[str, ...]
     accuracy: EndToEnd | None = None     # end to end against the physical truth (layer 4)
+    limit_cycles: LimitCycleReport = LimitCycleReport(())   # every biquad section
 
     @property
     def passed(self) -> bool:
@@ -327,10 +329,12 @@ def verify_design(design: Design, *, samples: int = LONG_RUN_MIN, seed: int = 0,
     for test in tests:
         if not test.passed:
             reasons.append(_test_reason(test))
+    cycles = analyse_design(design)
+    reasons += [sec.failure for sec in cycles.sections if sec.limit_cycle]
     return Verification(design=design, static=static, tests=tests,
                         engines=("python", *engines), budget_units=budget,
                         budget_used=accuracy.budget_used, seed=seed, reasons=tuple(reasons),
-                        accuracy=accuracy)
+                        accuracy=accuracy, limit_cycles=cycles)
 
 
 def _static_reason(s: StaticResult) -> str:

@@ -190,6 +190,11 @@ def report_html(v: Verification) -> str:
                                            "RMS LSB", f"max |error| {unit}", "SQNR dB",
                                            "saturations", "engines agree", "verdict"],
                  rows=tests),
+        _section("Limit cycles and dead band (zero and constant input, chain LSB)",
+                 headers=["section", "method", "region searched", "outcome"],
+                 rows=[[c.name, c.method, c.region, c.statement]
+                       for c in v.limit_cycles.sections]
+                 + [["all sections", "", "", v.limit_cycles.statement]]),
         _section("Magnitude response", plots=(("magnitude response", _magnitude(v)),)),
         _section("Step response", plots=(("step response", _step(v)),)),
         _section("Headroom per node", plots=(("headroom per node", _headroom(v)),)),
