@@ -436,5 +436,37 @@ def record_export(db: str, fmt: str, out: Path | None, **filters: Any) -> None:
     click.echo(run_export(db, make_filter(**filters), fmt=fmt, out=out), nl=False)
 
 
+@main.command()
+@click.argument("spec", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--vary", "vary", multiple=True, metavar="KEY=V1,V2,...", required=True,
+              help="A spec key (dotted, e.g. filter.stages[1].cutoff_hz) and its values; "
+              "repeat for a grid.")
+@click.option("--sort", "sort", default="error_bound", show_default=True,
+              help="Figure to sort by: divisions, settling_s, error_bound, cost, "
+              "mains_rejection_db, output_rate_hz.")
+@click.option("--jobs", "jobs", default=lambda: min(os.cpu_count() or 1, 8),
+              show_default="the machine's cores, at most 8", type=click.IntRange(1, 64),
+              help="Worker processes.")
+@click.option("--m4", is_flag=True,
+              help="Cost as Cortex-M4 instructions per sample, measured under QEMU (slow).")
+@click.option("--json", "as_json", is_flag=True, help="Print the variants as one JSON object.")
+@click.option("--html", "html", type=click.Path(dir_okay=False, path_type=Path),
+              help="Write a page with the Pareto plot and the table.")
+@click.option("--save", "save", multiple=True, type=(int, click.Path(dir_okay=False,
+              path_type=Path)), metavar="N FILE", help="Write variant N as a spec file.")
+@guarded
+def explore(spec: Path, vary: tuple[str, ...], sort: str, jobs: int, m4: bool, as_json: bool,
+            html: Path | None, save: tuple[tuple[int, Path], ...]) -> None:
+    """Evaluate a grid of variants of SPEC and mark the Pareto-optimal ones."""
+    from hosttool.commands.explore import run_explore
+
+    _, out = run_explore(spec, vary=vary, sort=sort, jobs=jobs, m4=m4, as_json=as_json,
+                         html=html, save=save)
+    if isinstance(out, str):
+        click.echo(out, nl=False)
+    else:
+        _emit_json(out)
+
+
 if __name__ == "__main__":  # pragma: no cover
     main()
