@@ -16,6 +16,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 from click.testing import CliRunner
+from conftest import require_tools
 
 from hosttool.cli import main
 from hosttool.spec.schema import load_spec
@@ -157,3 +158,36 @@ def test_page_has_the_plot_and_escapes(tmp_path: Path) -> None:
     assert text.count("data:image/png;base64,") == 1
     assert "&lt;b&gt;x&lt;/b&gt;" in text and "<b>x</b>" not in text
     assert "legal-metrology authority" in text
+
+
+def test_limit_cycle_figure_equals_the_verify_analysis(tmp_path: Path) -> None:
+    # the coupon's 50 Hz notch: quality 1 is free of limit cycles, 10 cycles
+    # (test_limit_cycles.py checks the search against a hand-built section and brute force)
+    fatigue = str(EXAMPLES / "fatigue_coupon.toml")
+    code, out, err = run("explore", fatigue, "--vary", "filter.stages[1].quality=1,10",
+                         "--vary", "filter.stages[2].quality=1", "--json", "--jobs", "1",
+                         "--save", "2", str(tmp_path / "q10.toml"))
+    assert code == 0, err
+    q1, q10 = json.loads(out)["variants"]
+    assert q1["figures"]["limit_cycle_lsb"] == 0
+    assert q10["figures"]["limit_cycle_lsb"] > 0
+    from hosttool.design.resolve import make_design
+    from hosttool.verify.limit_cycles import analyse_design
+
+    report = analyse_design(make_design(load_spec(tmp_path / "q10.toml")))
+    assert q10["figures"]["limit_cycle_lsb"] == max(
+        c.amplitude for s in report.sections for c in s.cycles)
+
+
+@pytest.mark.slow
+def test_m4_cost_is_the_instruction_count_under_qemu() -> None:
+    require_tools("m4", run=True)
+    code, out, err = run("explore", HIVE, "--vary", "filter.stages[0].length=3,8", "--m4",
+                         "--json", "--jobs", "2")
+    assert code == 0, err
+    data = json.loads(out)
+    assert data["cost"].startswith("Cortex-M4 instructions")
+    short, long_ = (v["figures"]["cost"] for v in data["variants"])
+    # 5 more taps of the moving average cost instructions: more per sample, and more than
+    # the multiplications alone (loads, shifts, the loop)
+    assert long_ > short > 5 + 3 + 5

@@ -16,7 +16,8 @@ from hosttool.util.pages import png_data_uri, render_page
 from hosttool.verify.explore import EXTRA, FIGURES, Variant, explore, parse_vary, sort_key
 
 HEADINGS = {"divisions": "divisions", "settling_s": "settling s", "error_bound": "bound",
-            "cost": "cost", "mains_rejection_db": "mains dB", "output_rate_hz": "out/s"}
+            "cost": "cost", "mains_rejection_db": "mains dB", "output_rate_hz": "out/s",
+            "limit_cycle_lsb": "cycle LSB"}
 
 
 def _cell(value: float) -> str:
@@ -51,7 +52,9 @@ def explore_text(variants: list[Variant], sort: str, unit: str, cost: str) -> st
              f"by {sort}",
              f"divisions: noise-free over the span; settling: to 1 LSB after a full-scale "
              f"step; bound: proven error of the arithmetic against the ideal design, {unit}; "
-             f"cost: {cost}; mains: worst rejection of 50 and 60 Hz with the ADC's sinc"]
+             f"cost: {cost}; mains: worst rejection of 50 and 60 Hz with the ADC's sinc; cycle: "
+             "largest limit cycle of a biquad section with a constant input, chain LSB (0: "
+             "proven none, inf: not proven)"]
     return "\n".join([*lines, "", *notes]) + "\n"
 
 
@@ -62,7 +65,7 @@ def explore_json(variants: list[Variant], spec_name: str, sort: str, cost: str
         return x if math.isfinite(x) else None
     return {
         "tool_version": __version__, "kind": "exploration", "spec_name": spec_name,
-        "sort": sort, "cost": cost, "figures": {k: d for k, (_, d) in FIGURES.items()},
+        "sort": sort, "cost": cost, "figures": {k: d for k, (_, d) in (FIGURES | EXTRA).items()},
         "variants": [{"index": v.index, "keys": v.keys, "valid": v.valid, "error": v.error,
                       "figures": {k: clean(x) for k, x in v.figures.items()},
                       "pareto": v.pareto} for v in variants],

@@ -32,6 +32,7 @@ from hosttool.design.filters import BiquadStage, FirStage
 from hosttool.design.resolve import Design, make_design
 from hosttool.errors import HostToolError, InputError
 from hosttool.spec.schema import parse_spec
+from hosttool.verify.limit_cycles import analyse_design
 
 #: The figures, their direction (+1: larger is better, -1: smaller is better) and units.
 FIGURES: dict[str, tuple[int, str]] = {
@@ -40,8 +41,13 @@ FIGURES: dict[str, tuple[int, str]] = {
     "error_bound": (-1, "proven error bound against the ideal design, output units"),
     "cost": (-1, "multiplications per ADC sample, or Cortex-M4 instructions per ADC sample"),
 }
-#: Shown beside the four, not part of the Pareto comparison.
-EXTRA = ("mains_rejection_db", "output_rate_hz")
+#: Shown beside the four, not part of the Pareto comparison (direction only for --sort).
+EXTRA: dict[str, tuple[int, str]] = {
+    "mains_rejection_db": (+1, "worst rejection of 50 and 60 Hz with the ADC's sinc, dB"),
+    "output_rate_hz": (+1, "output samples per second"),
+    "limit_cycle_lsb": (-1, "largest zero- or constant-input limit cycle of a biquad "
+                            "section, chain LSB (0: proven none; inf: not proven)"),
+}
 #: Most variants one exploration evaluates.
 MAX_VARIANTS = 4096
 
@@ -256,6 +262,9 @@ def figures_of(design: Design) -> dict[str, float]:
     """The figures of one design that need no firmware run (cost as multiplications)."""
     budget = design.budget
     report = design.filter_report.realised
+    cycles = analyse_design(design)
+    largest = max((c.amplitude for s in cycles.sections for c in s.cycles if c.period > 1),
+                  default=0)
     return {
         "divisions": budget.noise_free_divisions,
         "settling_s": report.settling_1lsb_s,
@@ -264,6 +273,7 @@ def figures_of(design: Design) -> dict[str, float]:
         "mains_rejection_db": min(report.rejection_50hz_with_sinc_db,
                                   report.rejection_60hz_with_sinc_db),
         "output_rate_hz": design.output_rate_hz,
+        "limit_cycle_lsb": float(largest) if cycles.proven else math.inf,
     }
 
 
@@ -326,7 +336,7 @@ def sort_key(figure: str) -> Any:
     if figure not in FIGURES and figure not in EXTRA:
         raise InputError(f"--sort: {figure!r} is not one of "
                          f"{', '.join((*FIGURES, *EXTRA))}")
-    sign = FIGURES[figure][0] if figure in FIGURES else +1
+    sign = (FIGURES | EXTRA)[figure][0]
 
     def key(v: Variant) -> tuple[int, float, int]:
         if not v.valid:
