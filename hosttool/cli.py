@@ -441,9 +441,9 @@ def record_export(db: str, fmt: str, out: Path | None, **filters: Any) -> None:
 @click.option("--vary", "vary", multiple=True, metavar="KEY=V1,V2,...", required=True,
               help="A spec key (dotted, e.g. filter.stages[1].cutoff_hz) and its values; "
               "repeat for a grid.")
-@click.option("--sort", "sort", default="error_bound", show_default=True,
-              help="Figure to sort by: divisions, settling_s, error_bound, cost, "
-              "mains_rejection_db, output_rate_hz.")
+@click.option("--sort", "sort", default="error", show_default=True,
+              help="Figure to sort by: divisions, settling_s, error, cost, error_bound, "
+              "mains_rejection_db, output_rate_hz, limit_cycle_lsb.")
 @click.option("--jobs", "jobs", default=lambda: min(os.cpu_count() or 1, 8),
               show_default="the machine's cores, at most 8", type=click.IntRange(1, 64),
               help="Worker processes.")

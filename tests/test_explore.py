@@ -67,9 +67,9 @@ def test_pareto_front_equals_brute_force(seed: int) -> None:
 
 def test_pareto_by_hand() -> None:
     # divisions up, settling down, bound down, cost down
-    a = {"divisions": 100.0, "settling_s": 1.0, "error_bound": 0.1, "cost": 10.0}
-    b = {"divisions": 100.0, "settling_s": 2.0, "error_bound": 0.1, "cost": 10.0}  # a wins
-    c = {"divisions": 200.0, "settling_s": 3.0, "error_bound": 0.1, "cost": 10.0}  # trade-off
+    a = {"divisions": 100.0, "settling_s": 1.0, "error": 0.1, "cost": 10.0}
+    b = {"divisions": 100.0, "settling_s": 2.0, "error": 0.1, "cost": 10.0}  # a wins
+    c = {"divisions": 200.0, "settling_s": 3.0, "error": 0.1, "cost": 10.0}  # trade-off
     d = dict(a)                                                                     # a's twin
     variants = [Variant(i, {}, "", figures=f) for i, f in enumerate((a, b, c, d), 1)]
     mark_pareto(variants)
@@ -111,14 +111,16 @@ def test_figures_equal_separate_check_and_design_runs(tmp_path: Path) -> None:
         assert spec.filter.stages[1].cutoff_hz == variant["keys"]["filter.stages[1].cutoff_hz"]
         c_code, c_out, _ = run("check", str(path), "--json")
         d_code, d_out, _ = run("design", str(path), "--json")
-        assert c_code == 0 and d_code == 0
-        check, design = json.loads(c_out), json.loads(d_out)
+        v_code, v_out, _ = run("verify", str(path), "--json", "--samples", "20000")
+        assert c_code == 0 and d_code == 0 and v_code in (0, 1)
+        check, design, verify = json.loads(c_out), json.loads(d_out), json.loads(v_out)
         f = variant["figures"]
         assert f["divisions"] == check["noise_free_divisions"]
         assert f["settling_s"] == design["response"]["realised"]["settling_1lsb_s"]
         assert f["error_bound"] == pytest.approx(
             design["ideal_error_bound_lsb"] * design["output_lsb"], rel=1e-12)
         assert f["output_rate_hz"] == design["output_rate_hz"]
+        assert f["error"] == verify["end_to_end"]["max_error"]
         # cost: the moving average's 5 taps, one biquad (5), the scale and the 4
         # multiplications of the temperature step, per ADC sample (no decimation)
         assert f["cost"] == 5 + 5 + 1 + 4

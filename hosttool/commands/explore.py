@@ -15,7 +15,8 @@ from hosttool.util.atomic import write_atomic
 from hosttool.util.pages import png_data_uri, render_page
 from hosttool.verify.explore import EXTRA, FIGURES, Variant, explore, parse_vary, sort_key
 
-HEADINGS = {"divisions": "divisions", "settling_s": "settling s", "error_bound": "bound",
+HEADINGS = {"divisions": "divisions", "settling_s": "settling s", "error": "error",
+            "error_bound": "arith. bound",
             "cost": "cost", "mains_rejection_db": "mains dB", "output_rate_hz": "out/s",
             "limit_cycle_lsb": "cycle LSB"}
 
@@ -51,7 +52,8 @@ def explore_text(variants: list[Variant], sort: str, unit: str, cost: str) -> st
     notes = [f"{len(variants)} variants, {valid} valid, {pareto} Pareto-optimal (*); sorted "
              f"by {sort}",
              f"divisions: noise-free over the span; settling: to 1 LSB after a full-scale "
-             f"step; bound: proven error of the arithmetic against the ideal design, {unit}; "
+             f"step; error: largest end-to-end error of the reading, {unit}; arith. bound: "
+             f"proven error of the arithmetic against the ideal design, {unit}; "
              f"cost: {cost}; mains: worst rejection of 50 and 60 Hz with the ADC's sinc; cycle: "
              "largest limit cycle of a biquad section with a constant input, chain LSB (0: "
              "proven none, inf: not proven)"]
@@ -84,15 +86,15 @@ def _pareto_plot(variants: list[Variant], unit: str) -> str:
                                  (True, "#1b6f8a", "Pareto-optimal")):
         pts = [v for v in valid if v.pareto == front]
         ax.scatter([v.figures["settling_s"] for v in pts],
-                   [v.figures["error_bound"] for v in pts],
+                   [v.figures["error"] for v in pts],
                    s=[12 + 60 * min(1.0, v.figures["divisions"] / max(
                        1.0, max(w.figures["divisions"] for w in valid))) for v in pts],
                    color=colour, label=label, alpha=0.85)
         for v in pts:
-            ax.annotate(str(v.index), (v.figures["settling_s"], v.figures["error_bound"]),
+            ax.annotate(str(v.index), (v.figures["settling_s"], v.figures["error"]),
                         fontsize=7, xytext=(3, 3), textcoords="offset points")
     ax.set_xlabel("settling to 1 LSB, s")
-    ax.set_ylabel(f"proven error bound, {unit}")
+    ax.set_ylabel(f"largest end-to-end error, {unit}")
     ax.set_xscale("log")
     ax.set_yscale("log")
     ax.grid(True, which="both", alpha=0.3)
