@@ -182,6 +182,17 @@ def test_search_returns_the_union_of_periodic_orbits() -> None:
                 assert state == (u1, u2, e)
 
 
+def test_section_l1_equals_the_scipy_response() -> None:
+    # scipy.signal.lfilter through impulse.biquad: the same proven L1 bound
+    from hosttool.design import impulse
+
+    for b, a in [((1.0, -1.0, 0.0), (1.0, 0.0, 243 / 256)),
+                 ((0.2, 0.1, 0.3), (1.0, -1.56, 0.64)),
+                 ((1.0, -1.0, 0.0), (1.0, -1.9, 0.9025))]:
+        assert limit_cycles.section_l1(b, a) == pytest.approx(impulse.biquad(b, a).l1,
+                                                               rel=1e-12)
+
+
 # --------------------------------------------------------------------------- examples
 
 

@@ -110,13 +110,13 @@ def pole_radius(a1: float, a2: float) -> float:
     return rho * (1 + 1e-12)
 
 
-def biquad(b: Sequence[float] | NDArray[np.float64], a: Sequence[float] | NDArray[np.float64]
-           ) -> Response:
-    """A stable biquad's impulse response, long enough that the proven tail is negligible.
+def biquad_span(b: Sequence[float] | NDArray[np.float64],
+                a: Sequence[float] | NDArray[np.float64]) -> tuple[int, float]:
+    """(length, proven bound of sum |h[n]| beyond it) of a stable biquad's impulse response,
+    the length doubled from 64 until that tail is below TAIL_TARGET (or MAX_LENGTH).
 
-    ``a`` is (1, a1, a2). Raises ValueError for poles on or outside the unit circle.
+    Raises ValueError for poles on or outside the unit circle.
     """
-    from scipy import signal  # deferred: ~1 s to import; a cached design needs none
     rho = pole_radius(a[1], a[2])
     if not rho < 1.0:
         raise ValueError(f"unstable biquad: pole radius {rho}")
@@ -126,8 +126,18 @@ def biquad(b: Sequence[float] | NDArray[np.float64], a: Sequence[float] | NDArra
         scale = bsum / rho ** 2 if rho > 0 else bsum
         tail = scale * _tail_sum(rho, n)
         if tail <= TAIL_TARGET or n >= MAX_LENGTH:
-            break
+            return n, tail
         n *= 2
+
+
+def biquad(b: Sequence[float] | NDArray[np.float64], a: Sequence[float] | NDArray[np.float64]
+           ) -> Response:
+    """A stable biquad's impulse response, long enough that the proven tail is negligible.
+
+    ``a`` is (1, a1, a2). Raises ValueError for poles on or outside the unit circle.
+    """
+    from scipy import signal  # deferred: ~1 s to import; a cached design needs none
+    n, tail = biquad_span(b, a)
     impulse = np.zeros(n)
     impulse[0] = 1.0
     h = signal.lfilter(np.asarray(b, dtype=np.float64), np.asarray(a, dtype=np.float64), impulse)
