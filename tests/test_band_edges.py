@@ -76,7 +76,10 @@ def test_a_band_to_nyquist_designs_verifies_and_renders(label: str, tmp_path: Pa
     for args in (["design", str(spec)], ["render", str(spec), "-o", str(tmp_path / "inc")],
                  ["verify", str(spec), "--samples", "20000"]):
         result = CliRunner().invoke(main, args)
-        assert result.exit_code == 0, (args[0], result.output)
+        # a Butterworth corner next to Nyquist has a period-2 limit cycle (poles near
+        # z = -1; test_limit_cycles.py): verify fails on it and on nothing else
+        cycles = args[0] == "verify" and "LIMIT CYCLE in stage1.section1" in result.output
+        assert result.exit_code == (1 if cycles else 0), (args[0], result.output)
         assert "Traceback" not in result.output
     d = _design(CASES[label])
     r = d.filter_report
