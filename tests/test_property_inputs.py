@@ -242,3 +242,21 @@ def test_readings_forms_of_time_accepted() -> None:
 
     unit = parse_readings(text, HIVE.spec, "r.csv").units["PT-1"]
     assert unit.cal_time_utc == int(np.datetime64("2025-03-04T08:04:00", "s").astype(int))
+
+
+@BOUNDED
+@given(scale=st.sampled_from([1e-300, 1e-12, 1e-3, 0.5, 2.0, -1.0]),
+       column=st.sampled_from([3, 4]),
+       offset=st.sampled_from([0.0, 5e-324, 1e-12, 1e6]),
+       rows=st.sets(st.integers(0, 12), min_size=1))
+def test_unit_with_extreme_numbers_is_judged_or_refused(scale: float, column: int,
+                                                         offset: float, rows: set[int]) -> None:
+    """The fit guards its numbers: raw means or deviations of some readings scaled to
+    subnormal, tiny, negated or huge values give a verdict or one line naming the unit."""
+    lines = LOT_TEXT.splitlines()
+    for i in rows:
+        cells = lines[2 + i].split(",")
+        cells[column] = repr(float(cells[column]) * scale + offset)
+        lines[2 + i] = ",".join(cells)
+    with _folder({"spec.toml": HIVE_TEXT, "lot.csv": "\n".join(lines) + "\n"}):
+        _run("calibrate", "spec.toml", "lot.csv", "--serial", "PT-1", "-o", "cal.json")
