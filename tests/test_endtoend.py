@@ -165,3 +165,21 @@ def test_verify_a_passed_unit_of_every_linearisation_mode(label: str, text: str,
     assert all("limit cycle" in r for r in data["reasons"]), data["reasons"]
     assert data["end_to_end"]["passed"]
     assert data["ideal_error_bound_lsb"] < 10 * data["error_bound_lsb"]
+
+
+def test_a_range_beyond_the_adc_names_the_rail() -> None:
+    # the same wide gauge at the coupon's fixed gain 128: +-19.5 mV of input range against
+    # about 62 mV at 50,000 ue (2.5 V x 0.105 / 4.2, the handbook bridge): the codes clip
+    text = WIDE.replace('pga_gain = "auto"', "pga_gain = 128")
+    e = end_to_end(_design(text))
+    limit_ue = 2.5 / 128 / 2.5 * 4 / GF * 1e6      # tangent reading at the input range's edge
+    assert e.rail_from is not None
+    # the exact bridge (handbook form) reaches the range's edge near the tangent's limit; the
+    # measurand grid places the first clipped point within one grid step of it
+    # compression reaches it first: |r| = |x| / (4 - 2|x|) for x < 0
+    x_edge = 4 * (2.5 / 128 / 2.5) / (1 + 2 * (2.5 / 128 / 2.5))
+    assert e.rail_from == pytest.approx(x_edge / GF * 1e6, abs=101.0)
+    assert e.rail_from < limit_ue
+    assert e.worst > 10_000.0 and e.worst_arithmetic > e.worst_model
+    reason = e.reason("ue", "none")
+    assert reason is not None and "the ADC is at its rail from |measurand|" in reason

@@ -33,7 +33,8 @@ def end_to_end_json(e: EndToEnd) -> dict[str, Any]:
             "bridge_nonlinearity": e.sensor_nonlinearity, "budget": e.budget,
             "passed": e.passed, "points": int(e.measurand.size),
             "temperatures_c": list(e.temperatures_c),
-            "suggested_order": e.suggested_order, "suggested_max_error": e.suggested_worst}
+            "suggested_order": e.suggested_order, "suggested_max_error": e.suggested_worst,
+            "rail_from": e.rail_from}
 
 
 def verify_json(v: Verification) -> dict[str, Any]:

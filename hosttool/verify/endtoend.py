@@ -69,6 +69,8 @@ class EndToEnd:
     budget: float | None            # the spec's error budget, output units
     suggested_order: int | None     # bridge-inverse order that would pass, when one helps
     suggested_worst: float | None   # that design's end-to-end worst, output units
+    rail_from: float | None = None  # smallest |measurand| whose bridge voltage lies beyond
+    #                                 the ADC's codes (None: the whole range fits)
 
     @property
     def passed(self) -> bool | None:
@@ -90,7 +92,10 @@ class EndToEnd:
         text = (f"end to end: the reading is off by up to {self.worst:.4g} {unit}{where}, "
                 f"more than the budget {self.budget:g} {unit} (model {self.worst_model:.4g}, "
                 f"arithmetic {self.worst_arithmetic:.4g})")
-        if self.worst_model > self.worst_arithmetic:
+        if self.rail_from is not None:
+            text += (f"; the ADC is at its rail from |measurand| {self.rail_from:.6g} {unit} "
+                     "on (a lower PGA gain would keep the range inside its codes)")
+        elif self.worst_model > self.worst_arithmetic:
             text += (f"; the bridge is nonlinear by {self.sensor_nonlinearity:.4g} {unit} and "
                      + ("it is not linearised" if mode == "none" else
                         f"linearisation ({mode}) leaves {self.worst_model:.4g} {unit}"))
@@ -158,22 +163,25 @@ def _real_codes(design: Design, m: F64, dt_centi: float) -> F64:
     return c.offset / g + change / per_count * span
 
 
-def _evaluate(design: Design, m: F64) -> tuple[list[int | None], F64, F64]:
-    """(temperatures, total error, model error), each row one temperature."""
+def _evaluate(design: Design, m: F64) -> tuple[list[int | None], F64, F64, NDArray[np.bool_]]:
+    """(temperatures, total error, model error, beyond the ADC's codes), each row one
+    temperature."""
     temps = _temperatures(design)
     ref = design.temperature.reference_centi if design.temperature else 0
     total = np.empty((len(temps), m.size))
     model = np.empty_like(total)
+    rail = np.zeros(total.shape, dtype=bool)
     for i, t in enumerate(temps):
         dt = 0.0 if t is None else float(t - ref)
         x = _real_codes(design, m, dt)
+        rail[i] = (x < design.code_min - 0.5) | (x > design.code_max + 0.5)
         codes = np.clip(np.rint(x), design.code_min, design.code_max).astype(np.int64)
         t_arr = None if t is None else np.full(m.size, t, dtype=np.int64)
         reading = design.to_units(1.0) * static_integer(design, codes, t_arr).output
         exact = design.to_units(1.0) * static_reference_real(design, x, t_arr)
         total[i] = reading - m
         model[i] = exact - m
-    return temps, total, model
+    return temps, total, model, rail
 
 
 def _measurands(design: Design) -> F64:
@@ -189,7 +197,7 @@ def _measurands(design: Design) -> F64:
 
 def _worst(design: Design) -> float:
     """Largest |reading - measurand| of a design (for the order search)."""
-    _, total, _ = _evaluate(design, _measurands(design))
+    _, total, _, _ = _evaluate(design, _measurands(design))
     return float(np.max(np.abs(total)))
 
 
@@ -212,7 +220,8 @@ def _suggest(design: Design, budget: float) -> tuple[int | None, float | None]:
 def end_to_end(design: Design) -> EndToEnd:
     """The end-to-end accuracy of ``design`` with its constants in force."""
     m = _measurands(design)
-    temps, total, model = _evaluate(design, m)
+    temps, total, model, rail = _evaluate(design, m)
+    at_rail = m[np.any(rail, axis=0)]
     arithmetic = total - model
     flat = int(np.argmax(np.abs(total)))
     row, col = divmod(flat, m.size)
@@ -231,4 +240,5 @@ def end_to_end(design: Design) -> EndToEnd:
         worst_at=float(m[col]), worst_temperature_c=None if t is None else t / 100,
         worst_model=worst_model, worst_arithmetic=float(np.abs(arithmetic).max()),
         sensor_nonlinearity=nonlinearity if math.isfinite(nonlinearity) else 0.0,
-        budget=budget, suggested_order=order, suggested_worst=suggested)
+        budget=budget, suggested_order=order, suggested_worst=suggested,
+        rail_from=None if at_rail.size == 0 else float(np.abs(at_rail).min()))
