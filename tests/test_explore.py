@@ -10,6 +10,7 @@ commands run separately on each saved variant.
 from __future__ import annotations
 
 import json
+import subprocess
 import tempfile
 import tomllib
 from pathlib import Path
@@ -18,6 +19,7 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 from conftest import require_tools
+from matplotlib import image as mpimg
 
 from hosttool.cli import main
 from hosttool.spec.schema import load_spec, parse_spec
@@ -207,3 +209,30 @@ def test_m4_cost_is_the_instruction_count_under_qemu() -> None:
             count = run_runner(exe, "m4", codes, temps).instructions_per_sample
         assert variant["figures"]["cost"] == count
         assert count is not None and count > 5 + 5 + 1 + 4   # more than its multiplications
+
+
+@pytest.mark.slow
+def test_page_renders_in_headless_chromium(tmp_path: Path) -> None:
+    # the page in Debian's chromium: the plot decodes and every variant is a table row
+    from test_report_browser import FLAGS, _chromium
+
+    browser = _chromium()
+    page = tmp_path / "space.html"
+    code, _, err = run("explore", HIVE, "--vary", "filter.stages[1].cutoff_hz=0.5,1,1.5",
+                       "--vary", "filter.coefficient_bits=16,20", "--html", str(page),
+                       "--jobs", "1")
+    assert code == 0, err
+    with tempfile.TemporaryDirectory() as profile:
+        dom = subprocess.run([browser, *FLAGS, f"--user-data-dir={profile}", "--dump-dom",
+                              page.as_uri()], check=True, timeout=120, capture_output=True,
+                             text=True).stdout
+        shot = tmp_path / "shot.png"
+        subprocess.run([browser, *FLAGS, f"--user-data-dir={profile}", "--window-size=1200,1400",
+                        f"--screenshot={shot}", page.as_uri()], check=True, timeout=120,
+                       capture_output=True)
+    assert dom.count("<img") == 1 and dom.count("<tr") == 1 + 6
+    assert dom.count('class="front"') >= 1
+    assert "must be one of 16, 32, got 20" in dom
+    pixels = mpimg.imread(shot)[..., :3]
+    teal = np.array([0x1b, 0x6f, 0x8a]) / 255   # the Pareto points' colour
+    assert np.sum(np.all(np.abs(pixels - teal) < 0.02, axis=-1)) > 20

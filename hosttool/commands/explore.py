@@ -89,7 +89,7 @@ def _pareto_plot(variants: list[Variant], unit: str) -> str:
                    [v.figures["error"] for v in pts],
                    s=[12 + 60 * min(1.0, v.figures["divisions"] / max(
                        1.0, max(w.figures["divisions"] for w in valid))) for v in pts],
-                   color=colour, label=label, alpha=0.85)
+                   color=colour, label=label, alpha=1.0 if front else 0.7)
         for v in pts:
             ax.annotate(str(v.index), (v.figures["settling_s"], v.figures["error"]),
                         fontsize=7, xytext=(3, 3), textcoords="offset points")
