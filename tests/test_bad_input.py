@@ -157,7 +157,7 @@ CASES: list[Case] = [
          "10 samples/s: its poles would sit closer to z = 1 than the coefficient words resolve",
          {S: sub("cutoff_hz = 0.5 }", "cutoff_hz = 1e-6 }")}),
     Case("notch-denormal", ("design", G),
-         "gauge.toml:39: filter.stages[1].frequency_hz: 4.94066e-324 Hz is below 1e-05 of this "
+         "gauge.toml:43: filter.stages[1].frequency_hz: 4.94066e-324 Hz is below 1e-05 of this "
          "stage's 250 samples/s: its poles would sit closer to z = 1 than the coefficient "
          "words resolve",
          {G: sub("frequency_hz = 50.0", "frequency_hz = 5e-324")}),
