@@ -37,6 +37,8 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Protocol
 
+from hosttool.errors import OutputError
+
 SCHEMA_VERSION = 2
 
 #: Every column a caller writes, in table order (``id`` is the back end's).
@@ -199,6 +201,29 @@ def decode_row(row: dict[str, Any]) -> dict[str, Any]:
     for name in JSON_COLUMNS:
         row[name] = json.loads(row[name])
     return row
+
+
+def stored_version(found: Sequence[Any] | None, where: str) -> int:
+    """The schema version a record holds (``found``: its ``record_info`` row, None when new);
+    OutputError for a value that is no version or one newer than this tool writes."""
+    if found is None:
+        return SCHEMA_VERSION
+    if not str(found[0]).isdigit():
+        raise OutputError(f"{where}: record_info.schema: {found[0]!r} is not a schema "
+                          "version: not a production record of this tool")
+    version = int(found[0])
+    if version > SCHEMA_VERSION:
+        raise OutputError(f"{where}: record schema {version}, this tool writes "
+                          f"{SCHEMA_VERSION} (a newer hosttool made it)")
+    return version
+
+
+def check_columns(have: set[str], where: str) -> None:
+    """Refuse an existing calibrations table that lacks a column of the schema."""
+    lacking = [c for c in ("id", *COLUMNS) if c not in have]
+    if have and lacking:
+        raise OutputError(f"{where}: calibrations.{lacking[0]}: no such column: not a "
+                          f"production record of schema {SCHEMA_VERSION}")
 
 
 def iter_statements(script: str) -> Iterator[str]:

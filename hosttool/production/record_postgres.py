@@ -30,8 +30,10 @@ from hosttool.production.record import (
     TABLE,
     Filter,
     Row,
+    check_columns,
     iter_statements,
     shown,
+    stored_version,
 )
 
 #: The advisory lock key held while the schema is created or migrated (ASCII "htschema").
@@ -69,13 +71,7 @@ class PostgresRecord:
         self.db.execute("CREATE TABLE IF NOT EXISTS record_info "
                         "(key TEXT PRIMARY KEY, value TEXT NOT NULL)")
         found = self.db.execute("SELECT value FROM record_info WHERE key = 'schema'").fetchone()
-        if found is not None and not str(found[0]).isdigit():
-            raise OutputError(f"{self.where}: record_info.schema: {found[0]!r} is not a schema "
-                              "version: not a production record of this tool")
-        version = SCHEMA_VERSION if found is None else int(found[0])
-        if version > SCHEMA_VERSION:
-            raise OutputError(f"{self.where}: record schema {version}, this tool writes "
-                              f"{SCHEMA_VERSION} (a newer hosttool made it)")
+        version = stored_version(found, str(self.where))
         if found is not None:
             for old in range(version, SCHEMA_VERSION):
                 for statement in MIGRATIONS[old]:
@@ -83,10 +79,7 @@ class PostgresRecord:
         have = {row[0] for row in self.db.execute(
             "SELECT column_name FROM information_schema.columns WHERE table_name = "
             "'calibrations' AND table_schema = current_schema()")}
-        lacking = [c for c in ("id", *COLUMNS) if c not in have]
-        if have and lacking:
-            raise OutputError(f"{self.where}: calibrations.{lacking[0]}: no such column: not "
-                              f"a production record of schema {SCHEMA_VERSION}")
+        check_columns(have, str(self.where))
         table = TABLE.format(id="BIGINT GENERATED ALWAYS AS IDENTITY PRIMARY KEY")
         for statement in iter_statements(table):
             self.db.execute(statement.encode())

@@ -28,7 +28,9 @@ from hosttool.production.record import (
     TABLE,
     Filter,
     Row,
+    check_columns,
     iter_statements,
+    stored_version,
 )
 
 BUSY_TIMEOUT_S = 120.0
@@ -55,22 +57,13 @@ class SqliteRecord:
         self.db.execute("CREATE TABLE IF NOT EXISTS record_info "
                         "(key TEXT PRIMARY KEY, value TEXT NOT NULL)")
         found = self.db.execute("SELECT value FROM record_info WHERE key = 'schema'").fetchone()
-        if found is not None and not str(found[0]).isdigit():
-            raise OutputError(f"{self.path}: record_info.schema: {found[0]!r} is not a schema "
-                              "version: not a production record of this tool")
-        version = SCHEMA_VERSION if found is None else int(found[0])
-        if version > SCHEMA_VERSION:
-            raise OutputError(f"{self.path}: record schema {version}, this tool writes "
-                              f"{SCHEMA_VERSION} (a newer hosttool made it)")
+        version = stored_version(found, str(self.path))
         if found is not None:
             for old in range(version, SCHEMA_VERSION):
                 for statement in MIGRATIONS[old]:
                     self.db.execute(statement)
         have = {row[1] for row in self.db.execute("PRAGMA table_info(calibrations)")}
-        lacking = [c for c in ("id", *COLUMNS) if c not in have]
-        if have and lacking:
-            raise OutputError(f"{self.path}: calibrations.{lacking[0]}: no such column: not a "
-                              f"production record of schema {SCHEMA_VERSION}")
+        check_columns(have, str(self.path))
         for statement in iter_statements(TABLE.format(id="INTEGER PRIMARY KEY")):
             self.db.execute(statement)
         self.db.execute("INSERT OR REPLACE INTO record_info VALUES ('schema', ?)",
