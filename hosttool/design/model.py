@@ -439,26 +439,61 @@ def _specialised_chain(c: Cascade) -> Callable[..., Any] | None:
         return None
 
 
+def _record(design: Design, codes: ArrayLike, temps_centi: ArrayLike | None
+            ) -> tuple[I64, I64 | None]:
+    """Codes and temperatures as int64 arrays, shapes checked (the code range is checked
+    by whoever runs them)."""
+    x = np.ascontiguousarray(codes, dtype=np.int64)
+    if x.ndim != 1:
+        raise ValueError(f"codes must be a 1-D array of {design.spec.adc.bits}-bit values")
+    if temps_centi is None:
+        return x, None
+    t = np.ascontiguousarray(temps_centi, dtype=np.int64)
+    if t.shape != x.shape:
+        raise ValueError("temperatures must pair one to one with codes")
+    return x, t
+
+
 def run_integer(design: Design, codes: ArrayLike,
                 temps_centi: ArrayLike | None = None) -> IntegerRun:
     """The bit-exact integer pipeline on a record of raw codes, from reset."""
+    c = cascade_arrays(design)
+    specialised = _specialised_chain(c)
+    taps32 = c.taps.astype(np.int32)
+    if specialised is None or not np.array_equal(taps32, c.taps):
+        return _run_generic(design, c, codes, temps_centi)
+    x, t = _record(design, codes, temps_centi)
+    p = static_params(design)
+    shifts = tuple(int(b[2]) if k == BLOCK_FIR else int(b[5])
+                   for k, b in zip(c.kinds, c.blocks, strict=True))
+    coeffs = tuple(int(v) for k, b in zip(c.kinds, c.blocks, strict=True)
+                   if k == BLOCK_BIQUAD for v in b[:5]) or (0,)
+    # the kernel finds the lowest and highest code in passing (a record outside the ADC's
+    # range is refused all the same, its figures never returned)
+    out, rail, clamped, peaks, sats, low, high = specialised(
+        x, _NO_TEMPS if t is None else t, t is not None, p.ints, p.lin, taps32,
+        shifts or (0,), coeffs)
+    if x.size and (low < design.code_min or high > design.code_max):
+        _inputs(design, x, t)                 # raises its ValueError
+    return _named(design, c, IntegerRun(output=out, rail=rail, clamped=clamped), peaks, sats)
+
+
+def _run_generic(design: Design, c: Cascade, codes: ArrayLike,
+                 temps_centi: ArrayLike | None) -> IntegerRun:
+    """run_integer through the generic loop (``_chain_run``)."""
     x, t = _inputs(design, codes, temps_centi)
     p = static_params(design)
-    c = cascade_arrays(design)
-    tt = _NO_TEMPS if t is None else t
-    specialised = _specialised_chain(c)
-    if specialised is not None:
-        shifts = tuple(int(b[2]) if k == BLOCK_FIR else int(b[5])
-                       for k, b in zip(c.kinds, c.blocks, strict=True))
-        coeffs = tuple(int(v) for k, b in zip(c.kinds, c.blocks, strict=True)
-                       if k == BLOCK_BIQUAD for v in b[:5]) or (0,)
-        out, peaks, sats, flags = specialised(x, tt, t is not None, p.ints, p.lin, c.taps,
-                                              shifts or (0,), coeffs, design.decimation)
-    else:
-        out, peaks, sats, flags = _chain_run(x, tt, t is not None, p.ints, p.lin, c.kinds,
-                                             c.blocks, c.taps, design.decimation)
+    out, peaks, sats, flags = _chain_run(x, _NO_TEMPS if t is None else t, t is not None,
+                                         p.ints, p.lin, c.kinds, c.blocks, c.taps,
+                                         design.decimation)
     run = IntegerRun(output=out, rail=(flags & _FLAG_RAIL) != 0,
                      clamped=(flags & _FLAG_CLAMPED) != 0)
+    return _named(design, c, run, peaks, sats)
+
+
+def _named(design: Design, c: Cascade, run: IntegerRun, peaks: I64, sats: I64
+           ) -> IntegerRun:
+    """``run`` with the kernels' per-node peaks and saturation counts under node names."""
     nb = len(c.names)
     names = [(0, "offset"), *((b + 1, name) for b, name in enumerate(c.names)),
              *((nb + i, name) for i, name in _static_names(design))]
