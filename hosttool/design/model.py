@@ -2,10 +2,12 @@
 
 The integer model follows DEVELOPERS.md "Arithmetic contract" operation by operation; the C
 reference firmware must give the same integers. The whole integer chain (offset, filter
-cascade, scale, linearisation, temperature) runs as one compiled loop (numba) per record,
-sample by sample, in exact int64 arithmetic (the design proves nothing overflows), with the
-peak and the saturation count of every node kept in locals. The static path alone is the
-same compiled code (``static_word``), which the exhaustive sweep (static_sweep.py) also uses.
+cascade, scale, linearisation, temperature) runs as one compiled function (numba) per
+record, in exact integer arithmetic (the design proves nothing overflows): the one compiled
+for the cascade's shape (chain.py: the filter recursion sample by sample, the statistics and
+the static path vectorised per block), or without a cache folder the generic loop
+``_chain_run``, which gives the same integers. The static path is one compiled function
+(``static_word``), which the exhaustive sweep (static_sweep.py) also uses.
 
 Both run a record from reset (all filter state zero). Inputs: raw codes (sign-extended ADC
 codes) and optionally temperatures in 0.01 C, one per code; outputs: one value per output
