@@ -13,6 +13,7 @@ Outside references:
 
 from __future__ import annotations
 
+import dataclasses
 import json
 from pathlib import Path
 
@@ -25,7 +26,7 @@ from scipy import signal
 from hosttool.cli import main
 from hosttool.design.filters import FirStage
 from hosttool.design.model import run_integer, run_reference
-from hosttool.design.resolve import Design, make_design
+from hosttool.design.resolve import Design, UnitConstants, make_design
 from hosttool.spec.schema import load_spec
 from hosttool.verify.proof import _linear_chirp, static_temperatures
 from hosttool.verify.sweep import HISTOGRAM_BINS, STATIC_BINS, sweep_static
@@ -122,6 +123,51 @@ def test_sweep_gives_the_figures_of_plain_numpy(name: str) -> None:
     # the totals are exact
     assert got.error_histogram[1].sum() == x.size
     assert np.abs(got.error_histogram[1] - hist).sum() <= 2 * HISTOGRAM_BINS
+
+
+def _edge_constants(d: Design, sign: int) -> UnitConstants:
+    """Constants at the edges of what the calibration loader accepts (tests/test_firmware.py
+    runs the same edges through the C firmware): the offset at the ADC range, the span
+    multiplier at its limit, linearisation coefficients of 2^31 - 1, both temperature
+    coefficients at 2^31 - 1."""
+    top = (1 << 31) - 1
+    n = len(d.nominal.lin)
+    lin = tuple(([0] * n + [-sign * top, sign * top])[-n:]) if n else ()
+    unit = UnitConstants(offset=-sign * (1 << (d.spec.adc.bits - 1 + d.guard_bits)),
+                         scale_mul=sign * d.scale.multiplier_limit, lin=lin,
+                         tc_zero=sign * top if d.temperature else 0,
+                         tc_span=sign * top if d.temperature else 0)
+    d.check_unit(unit, "test")
+    return unit
+
+
+@pytest.mark.parametrize("name", list(DESIGNS))
+@pytest.mark.parametrize("case", ["edge+", "edge-", "beyond"])
+def test_sweep_at_the_loader_edges_gives_the_figures_of_plain_numpy(name: str,
+                                                                     case: str) -> None:
+    # constants at the loader's edges, and beyond them (an offset of 2^31 the loader
+    # refuses, set here without its check, so that half the codes saturate the offset
+    # step), at a temperature beyond the compensated range (clamped): every output,
+    # reference and saturation is the contract's
+    d = DESIGNS[name]
+    unit = _edge_constants(d, -1 if case == "edge-" else 1)
+    if case == "beyond":
+        d = dataclasses.replace(d, constants=dataclasses.replace(unit, offset=1 << 31))
+    else:
+        d = d.with_constants(unit)
+    temp = None if d.temperature is None else d.temperature.max_centi + 3000
+    got = sweep_static(d, [temp], bound=4.0, threads=2)
+    x = np.arange(d.code_min, d.code_max + 1, dtype=np.int64)
+    out, ref, sat = _contract_static(d, x, temp)
+    a = np.abs(out - ref)
+    assert (sat > 0) == (case == "beyond")
+    assert got.saturations == sat
+    assert got.max_error_lsb == float(a.max())
+    assert got.mean_abs_error_lsb == sum(float(a[i:i + (1 << 18)].sum())
+                                         for i in range(0, x.size, 1 << 18)) / x.size
+    sign = 1 if d.constants.scale_mul >= 0 else -1
+    assert got.monotonic == bool(np.all(np.diff(out) * sign >= 0))
+    np.testing.assert_array_equal(got.max_error_by_bin, a.reshape(STATIC_BINS, -1).max(axis=1))
 
 
 def test_figures_do_not_depend_on_the_thread_count() -> None:

@@ -23,7 +23,7 @@ from hosttool.design.resolve import Design
 from hosttool.errors import InputError
 from hosttool.verify.endtoend import EndToEnd, end_to_end, error_budget
 from hosttool.verify.limit_cycles import LimitCycleReport, analyse_design
-from hosttool.verify.sweep import STATIC_BINS, SettledEngine, sweep_static
+from hosttool.verify.sweep import STATIC_BINS, SettledEngine, StaticSweep, SweepResult
 
 I64 = NDArray[np.int64]
 #: An engine runs the integer pipeline on (codes, temperatures or None) from reset.
@@ -266,10 +266,9 @@ def static_temperatures(design: Design) -> list[int | None]:
                                   np.linspace(tc.min_centi, tc.max_centi, TEMPERATURE_STEPS))]
 
 
-def _static(design: Design, engines: dict[str, SettledEngine]) -> StaticResult:
+def _static(design: Design, sweep: SweepResult, with_engines: bool) -> StaticResult:
     bound = design.static_error_bound_lsb
-    sweep = sweep_static(design, static_temperatures(design), bound=bound, engines=engines)
-    agree = None if not engines else not any(sweep.mismatches.values())
+    agree = None if not with_engines else not any(sweep.mismatches.values())
     passed = (sweep.max_error_lsb <= bound and sweep.saturations == 0 and sweep.monotonic
               and agree is not False)
     bins = np.linspace(design.code_min, design.code_max + 1, STATIC_BINS + 1)
@@ -304,17 +303,27 @@ def verify_design(design: Design, *, samples: int = LONG_RUN_MIN, seed: int = 0,
     if seed < 0:
         raise InputError(f"--seed: {seed} is negative; give 0 or more")
     engines = engines or {}
+    static_engines = static_engines or {}
     rng = np.random.default_rng(seed)
     clock = time.perf_counter()
-    static = _static(design, static_engines or {})
-    lap = time.perf_counter()
-    tests = tuple(_dynamic(design, name, text, codes, temps, engines)
-                  for name, text, codes, temps in _stimuli(design, samples, rng))
+    # the sweep's threads start now; this thread runs the dynamic tests and the other
+    # checks meanwhile, then joins the sweep (threads never outnumber the cores)
+    sweep = StaticSweep(design, static_temperatures(design),
+                        bound=design.static_error_bound_lsb, engines=static_engines)
+    try:
+        tests = tuple(_dynamic(design, name, text, codes, temps, engines)
+                      for name, text, codes, temps in _stimuli(design, samples, rng))
+        lap = time.perf_counter()
+        budget = error_budget(design)
+        accuracy = end_to_end(design)
+        cycles = analyse_design(design)
+    except BaseException:
+        sweep.cancel()
+        raise
+    static = _static(design, sweep.result(), bool(static_engines))
     if timings is not None:
-        timings["static"] = lap - clock
-        timings["dynamic"] = time.perf_counter() - lap
-    budget = error_budget(design)
-    accuracy = end_to_end(design)
+        timings["static"] = time.perf_counter() - clock
+        timings["dynamic"] = lap - clock
     reasons: list[str] = []
     why = accuracy.reason(design.spec.sensor.unit, design.spec.linearisation.mode)
     if why is not None:
@@ -329,7 +338,6 @@ def verify_design(design: Design, *, samples: int = LONG_RUN_MIN, seed: int = 0,
     for test in tests:
         if not test.passed:
             reasons.append(_test_reason(test))
-    cycles = analyse_design(design)
     reasons += [sec.failure for sec in cycles.sections if sec.limit_cycle]
     return Verification(design=design, static=static, tests=tests,
                         engines=("python", *engines), budget_units=budget,

@@ -1,44 +1,69 @@
 """The exhaustive static sweep: every ADC code at every temperature step, in one compiled loop.
 
-For each code the loop computes the bit-exact integer static path (``model.static_word``,
-the same compiled code as the integer model), the float64 reference (``model.static_value``)
-and the error statistics, with no array larger than one chunk's by-bin maxima: largest and
-summed |error|, saturations, monotonicity, and, at the first temperature, the largest error
-per code bin and the error histogram of the report. With a compiled engine (the C firmware),
+For each code the loop computes the bit-exact integer static path and its float64 reference
+(the operations of ``model.static_word`` and ``model.static_value``, in their order) and the
+error statistics, with no array larger than one chunk's by-bin maxima: largest and summed
+|error|, saturations, monotonicity, and, at the first temperature, the largest error per
+code bin and the error histogram of the report. With a compiled engine (the C firmware),
 its settled outputs of the chunk are compared code by code in the same loop: a three-way
 proof (reference, model, firmware) over every code.
 
-The codes are cut into chunks of ``CHUNK`` codes, computed by a pool of threads (the kernel
-releases the GIL) and combined in chunk order, so the figures do not depend on the number
-of threads. The sum of |error| of each chunk follows numpy's pairwise summation (blocks of
-128 with 8 partial sums, halves added recursively), so the mean is the one the earlier
-numpy version gave.
+The loop is written in the form a sweep at one temperature allows, so that the compiler
+vectorises it: the temperature step's terms computed once, clamps as min and max, each
+rounding shift with its half computed once; an identity of the same integers and floats,
+not an approximation (tests/test_static_sweep.py holds it to the contract on every code,
+at the calibration loader's edges and beyond them).
+
+The codes are cut into chunks of ``CHUNK`` codes, computed by threads (the kernel releases
+the GIL) a few chunks at a time and combined in chunk order, so the figures do not depend
+on the number of threads. The sum of |error| of each chunk follows numpy's pairwise
+summation (blocks of 128 with 8 partial sums, halves added recursively), so the mean is
+the one the earlier numpy version gave. A ``StaticSweep`` starts its threads at once and
+lets the caller do other work before it joins them (``verify`` runs its dynamic tests
+meanwhile).
 """
 
 from __future__ import annotations
 
+import itertools
 import os
+import threading
 from collections.abc import Callable, Sequence
-from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import NDArray
 
 from hosttool.design.compiled import njit
+from hosttool.design.fixedpoint import INT32_MAX, INT32_MIN
 from hosttool.design.model import (
+    F_ALPHA,
+    F_GAMMA,
     F_GUARD,
+    F_NORM,
     F_OFFSET,
+    F_SCALE,
+    P_GUARD,
+    P_HAS_LIN,
+    P_HAS_TC,
+    P_KS,
+    P_KZ,
+    P_LIN_SHIFT,
+    P_MUL,
+    P_OFFSET,
+    P_SHIFT,
+    P_SS,
+    P_SZ,
+    P_TMAX,
+    P_TMIN,
     P_TREF,
     Floats,
     Ints,
     clamp32,
-    offset_word,
+    round_shift,
     static_params,
-    static_value,
-    static_word,
 )
-from hosttool.design.resolve import Design
+from hosttool.design.resolve import LIN_FRAC, Design
 
 I32 = NDArray[np.int32]
 I64 = NDArray[np.int64]
@@ -49,98 +74,156 @@ SettledEngine = Callable[[int, int, I32], None]
 
 #: Codes per chunk (a power of two: chunks hold whole bins and whole pairwise blocks).
 CHUNK = 1 << 18
+#: Chunks per task of a thread (a task of hive_scale takes a few milliseconds).
+TASK_CHUNKS = 4
 #: Bins of the error-against-code plot.
 STATIC_BINS = 512
 #: Bins of the error histogram over [-bound, bound].
 HISTOGRAM_BINS = 40
 _BLOCK = 128
+_NO_EXPECTED = np.zeros(1, dtype=np.int32)
 
 # Per-chunk integer results, by index.
 _I_SAT, _I_MONO, _I_FIRST, _I_LAST, _I_MISMATCH, _I_FIRST_MISMATCH = range(6)
 
 
-@njit(cache=True, nogil=True)
-def _chunk(first: int, count: int, temp: int, has_t: bool, ip: Ints, lin: Ints, fp: Floats,
+@njit(cache=True, nogil=True, error_model="numpy")
+def _sweep(first: int, chunks: int, chunk: int, t: int, ip: Ints, lin: Ints, fp: Floats,
            flin: Floats, sign: int, bound: float, width: float, per_bin: int, bins: F64,
-           hist: I64, expected: I32, compare: bool,
-           ints: I64) -> tuple[float, float]:  # pragma: no cover - compiled
-    """One chunk of codes first .. first + count - 1 at one temperature.
+           hist: I64, expected: I32, compare: bool, ints: I64,
+           sums: F64) -> float:  # pragma: no cover - compiled
+    """``chunks`` chunks of ``chunk`` codes from ``first`` on, at temperature ``t`` (0.01 C).
 
-    Returns (largest |error|, pairwise sum of |error|); fills ``ints`` (saturations,
-    monotonic, first and last output, mismatches against ``expected``, index of the first
-    mismatch or -1) and, when ``per_bin`` > 0, ``bins`` (largest |error| per bin) and
-    ``hist`` (error counts).
+    The static path of every code (DEVELOPERS.md, "Arithmetic contract", steps 1 and 3 to
+    5) and its float64 reference (``model.static_value``'s operations, in its order), in
+    blocks of ``_BLOCK`` codes: a block's outputs and errors in one loop with no branch that
+    depends on the code (the temperature step's terms computed once for the sweep, clamps
+    as min and max, a rounding shift as (x + 2^(k-1)) >> k with the half 0 for k = 0), so
+    the compiler can vectorise it; then the block's statistics. ``lin`` is empty without
+    linearisation. Returns the largest |error|; fills ``sums`` (each chunk's pairwise sum
+    of |error|), ``ints`` (see ``_I_*``) and, when ``per_bin`` > 0, ``bins`` (largest
+    |error| per bin of ``per_bin`` codes, a multiple of ``_BLOCK``) and ``hist`` (error
+    counts over [-bound, bound] in bins of ``width``).
     """
-    t = temp if has_t else ip[P_TREF]
+    outs = np.empty(_BLOCK, dtype=np.int64)
+    errs = np.empty(_BLOCK, dtype=np.float64)
+    slots = np.empty(_BLOCK, dtype=np.int64)
+    stack = np.zeros(64, dtype=np.float64)
+    levels = np.zeros(64, dtype=np.int64)
+    # the temperature step's terms at t; without one, terms that leave every value as it is
+    z, g, alpha_dt, gain = 0, 0, 0.0, 1.0
+    if ip[P_HAS_TC]:
+        dt = min(max(t, ip[P_TMIN]), ip[P_TMAX]) - ip[P_TREF]
+        z = round_shift(ip[P_KZ] * dt, ip[P_SZ])
+        g = round_shift(ip[P_KS] * dt, ip[P_SS])
+        alpha_dt = fp[F_ALPHA] * float(dt)
+        gain = 1.0 + fp[F_GAMMA] * float(dt)
+    guard, offset, mul, shift = ip[P_GUARD], ip[P_OFFSET], ip[P_MUL], ip[P_SHIFT]
+    half = (1 << (shift - 1)) if shift > 0 else 0
+    k = ip[P_LIN_SHIFT]
+    k_half = (1 << (k - 1)) if k > 0 else 0
+    lin_half = 1 << (LIN_FRAC - 1)
+    f_guard, f_offset, f_scale, f_norm = fp[F_GUARD], fp[F_OFFSET], fp[F_SCALE], fp[F_NORM]
+    n_lin = len(lin)
     max_err = 0.0
     sat_count = 0
-    monotonic = True
+    breaks = 0
     mismatches = 0
     first_mismatch = -1
     previous = 0
-    first_out = 0
-    stack = np.zeros(64, dtype=np.float64)
-    levels = np.zeros(64, dtype=np.int64)
-    depth = 0
-    part = np.zeros(8, dtype=np.float64)
     bin_max = 0.0
-    for i in range(count):
-        x = first + i
-        r = offset_word(x, ip)
-        v = clamp32(r)
-        out, _scaled, _linearised, sat = static_word(v, t, ip, lin)
-        sat_count += (v != r) + (sat & 1) + ((sat >> 1) & 1) + ((sat >> 2) & 1)
-        ref = static_value(float(x) * fp[F_GUARD] - fp[F_OFFSET], t, ip, fp, flin)
-        err = float(out) - ref
-        a = abs(err)
-        if a > max_err:
-            max_err = a
-        # numpy's pairwise summation: 8 partial sums per block of 128
-        j = i % _BLOCK
-        if j < 8:
-            part[j] = a
-        else:
-            part[j % 8] += a
-        if j == _BLOCK - 1:
-            s = ((part[0] + part[1]) + (part[2] + part[3])) + \
-                ((part[4] + part[5]) + (part[6] + part[7]))
+    top = hist.size - 1
+    for c in range(chunks):
+        depth = 0
+        for base in range(c * chunk, (c + 1) * chunk, _BLOCK):
+            sats = 0
+            for j in range(_BLOCK):
+                x = first + base + j
+                r = x * (1 << guard) - offset
+                v = clamp32(r)
+                sats += v != r
+                r = (v * mul + half) >> shift
+                s = clamp32(r)
+                sats += s != r
+                ref = (float(x) * f_guard - f_offset) * f_scale
+                if n_lin > 0:
+                    w = s * (1 << k)
+                    acc = lin[n_lin - 1]
+                    for i in range(n_lin - 2, -1, -1):
+                        acc = ((acc * w + lin_half) >> LIN_FRAC) + lin[i]
+                    r = (acc + k_half) >> k
+                    s = clamp32(r)
+                    sats += s != r
+                    wf = ref / f_norm
+                    c0 = flin[n_lin - 1] + wf * 0.0
+                    for i in range(n_lin - 2, -1, -1):
+                        c0 = flin[i] + c0 * wf
+                    ref = c0 * f_norm
+                s1 = s - z
+                r = s1 + ((s1 * g + lin_half) >> LIN_FRAC)
+                s = clamp32(r)
+                sats += s != r
+                ref = min(max((ref - alpha_dt) * gain, float(INT32_MIN)), float(INT32_MAX))
+                outs[j] = s
+                errs[j] = float(s) - ref
+            sat_count += sats
+            # numpy's pairwise summation: 8 partial sums over the block, then a tree
+            p0, p1, p2, p3 = abs(errs[0]), abs(errs[1]), abs(errs[2]), abs(errs[3])
+            p4, p5, p6, p7 = abs(errs[4]), abs(errs[5]), abs(errs[6]), abs(errs[7])
+            for j in range(8, _BLOCK, 8):
+                p0 += abs(errs[j])
+                p1 += abs(errs[j + 1])
+                p2 += abs(errs[j + 2])
+                p3 += abs(errs[j + 3])
+                p4 += abs(errs[j + 4])
+                p5 += abs(errs[j + 5])
+                p6 += abs(errs[j + 6])
+                p7 += abs(errs[j + 7])
+            total = ((p0 + p1) + (p2 + p3)) + ((p4 + p5) + (p6 + p7))
             level = 0
             while depth > 0 and levels[depth - 1] == level:
                 depth -= 1
-                s = stack[depth] + s
+                total = stack[depth] + total
                 level += 1
-            stack[depth] = s
+            stack[depth] = total
             levels[depth] = level
             depth += 1
-        if i == 0:
-            first_out = out
-        elif (out - previous) * sign < 0:
-            monotonic = False
-        previous = out
-        if compare and expected[i] != out:
-            mismatches += 1
-            if first_mismatch < 0:
-                first_mismatch = i
-        if per_bin > 0:
-            if a > bin_max:
-                bin_max = a
-            if (i + 1) % per_bin == 0:
-                bins[i // per_bin] = bin_max
-                bin_max = 0.0
-            e = min(max(err, -bound), bound)
-            k = int((e + bound) / width)
-            hist[min(k, hist.size - 1)] += 1
-    # a power-of-two count leaves one sum; otherwise add what is left, last first
-    total = stack[depth - 1] if depth > 0 else 0.0
-    for d in range(depth - 2, -1, -1):
-        total = stack[d] + total
+            block_max = 0.0
+            for j in range(_BLOCK):
+                a = abs(errs[j])
+                block_max = a if a > block_max else block_max
+            max_err = block_max if block_max > max_err else max_err
+            if base == 0:
+                ints[_I_FIRST] = outs[0]
+            elif (outs[0] - previous) * sign < 0:
+                breaks += 1
+            for j in range(1, _BLOCK):
+                breaks += (outs[j] - outs[j - 1]) * sign < 0
+            previous = outs[_BLOCK - 1]
+            if compare:
+                for j in range(_BLOCK):
+                    if expected[base + j] != outs[j]:
+                        mismatches += 1
+                        if first_mismatch < 0:
+                            first_mismatch = base + j
+            if per_bin > 0:
+                bin_max = block_max if block_max > bin_max else bin_max
+                if (base + _BLOCK) % per_bin == 0:
+                    bins[base // per_bin] = bin_max
+                    bin_max = 0.0
+                for j in range(_BLOCK):
+                    e = min(max(errs[j], -bound), bound)
+                    slots[j] = min(int((e + bound) / width), top)
+                for j in range(_BLOCK):
+                    hist[slots[j]] += 1
+        # a chunk is a power of two of blocks: one sum is left
+        sums[c] = stack[0]
     ints[_I_SAT] = sat_count
-    ints[_I_MONO] = 1 if monotonic else 0
-    ints[_I_FIRST] = first_out
+    ints[_I_MONO] = 1 if breaks == 0 else 0
     ints[_I_LAST] = previous
     ints[_I_MISMATCH] = mismatches
     ints[_I_FIRST_MISMATCH] = first_mismatch
-    return max_err, total
+    return max_err
 
 
 @dataclass(frozen=True)
@@ -165,6 +248,161 @@ def _workers() -> int:
                else (os.cpu_count() or 1))
 
 
+@dataclass(frozen=True)
+class _Task:
+    """Chunks ``chunks`` of ``first`` .. at the sweep's temperature ``k``."""
+
+    k: int
+    temp: int | None
+    start: int          # first code's index in the ADC's range
+    chunks: int
+
+
+@dataclass
+class _Done:
+    """A task's figures: largest |error|, each chunk's sum, the kernel's integers, bins,
+    histogram, and per engine (mismatches, index of the first or -1)."""
+
+    max_err: float
+    sums: F64
+    ints: I64
+    bins: F64
+    hist: I64
+    engines: dict[str, tuple[int, int]]
+
+
+class StaticSweep:
+    """A sweep under way: ``threads - 1`` threads start at once; ``result()`` joins them
+    with the calling thread, so a caller can do other work in between (the sweep then
+    keeps ``threads - 1`` cores busy and the caller the last one) and never runs more
+    than ``threads`` at a time."""
+
+    def __init__(self, design: Design, temperatures_centi: Sequence[int | None], *,
+                 bound: float, engines: dict[str, SettledEngine] | None = None,
+                 threads: int | None = None):
+        self.design = design
+        self.temperatures = list(temperatures_centi)
+        self.bound = bound
+        self.engines = engines or {}
+        self.params = static_params(design)
+        p = self.params
+        self.lin = p.lin if p.ints[P_HAS_LIN] else ()
+        self.tref = int(p.ints[P_TREF])
+        n_codes = design.code_max - design.code_min + 1
+        if n_codes & (n_codes - 1) or n_codes < STATIC_BINS * _BLOCK:
+            raise ValueError("the code range must be a power of two of at least "
+                             f"{STATIC_BINS * _BLOCK} codes")
+        self.n_codes = n_codes
+        self.chunk = min(CHUNK, n_codes)
+        self.per_bin = n_codes // STATIC_BINS
+        self.width = float(np.linspace(-bound, bound, HISTOGRAM_BINS + 1)[1] + bound)
+        self.sign = 1 if design.constants.scale_mul >= 0 else -1
+        per_temp = n_codes // self.chunk
+        step = min(TASK_CHUNKS, per_temp)
+        self.tasks = [_Task(k, temp, c * self.chunk, min(step, per_temp - c))
+                      for k, temp in enumerate(self.temperatures)
+                      for c in range(0, per_temp, step)]
+        self.done: list[_Done | None] = [None] * len(self.tasks)
+        self.failure: BaseException | None = None
+        self.cancelled = False
+        self._next = itertools.count()
+        self.helpers = [threading.Thread(target=self._work, name=f"static-sweep-{i}",
+                                         daemon=True)
+                        for i in range((threads or _workers()) - 1)]
+        for helper in self.helpers:
+            helper.start()
+
+    def _work(self) -> None:
+        """Take tasks in order until none is left (next() on a count is atomic)."""
+        try:
+            for i in self._next:
+                if i >= len(self.tasks) or self.failure is not None or self.cancelled:
+                    return
+                self.done[i] = self._run(self.tasks[i])
+        except BaseException as exc:  # handed to the caller of result()
+            self.failure = exc
+
+    def _run(self, task: _Task) -> _Done:
+        p = self.params
+        first = self.design.code_min + task.start
+        count = task.chunks * self.chunk
+        want = task.k == 0
+        bins = np.zeros(count // self.per_bin if want else 1)
+        hist = np.zeros(HISTOGRAM_BINS, dtype=np.int64)
+        t = self.tref if task.temp is None else int(task.temp)
+        ints = np.zeros(6, dtype=np.int64)
+        sums = np.zeros(task.chunks)
+        engine_ints: dict[str, tuple[int, int]] = {}
+        expected = _NO_EXPECTED
+        for j, (name, engine) in enumerate(self.engines.items()):
+            buffer = np.empty(count, dtype=np.int32)
+            engine(first, t, buffer)
+            if j == 0:
+                expected = buffer
+            elif not np.array_equal(buffer, expected):
+                # compared with the first engine; the kernel compares that one with the model
+                differ = buffer != expected
+                engine_ints[name] = (int(np.count_nonzero(differ)), int(np.argmax(differ)))
+        m = _sweep(first, task.chunks, self.chunk, t, p.ints, self.lin, p.floats, p.flin,
+                   self.sign, self.bound, self.width, self.per_bin if want else 0, bins, hist,
+                   expected, bool(self.engines), ints, sums)
+        for j, name in enumerate(self.engines):
+            if j == 0 or name not in engine_ints:
+                engine_ints[name] = (int(ints[_I_MISMATCH]), int(ints[_I_FIRST_MISMATCH]))
+        return _Done(m, sums, ints, bins, hist, engine_ints)
+
+    def cancel(self) -> None:
+        """Let the threads stop after their current task (the caller gave up)."""
+        self.cancelled = True
+
+    def result(self) -> SweepResult:
+        """Work on the tasks left, wait for the threads, and combine in task order."""
+        self._work()
+        for helper in self.helpers:
+            helper.join()
+        if self.failure is not None:
+            raise self.failure
+        return self._combine()
+
+    def _combine(self) -> SweepResult:
+        lo = self.design.code_min
+        max_err, abs_sum, saturations, monotonic = 0.0, 0.0, 0, True
+        by_bin = np.zeros(STATIC_BINS)
+        hist_total = np.zeros(HISTOGRAM_BINS)
+        mismatches = dict.fromkeys(self.engines, 0)
+        first_bad: dict[str, tuple[int, int] | None] = dict.fromkeys(self.engines)
+        previous: tuple[int, int] | None = None     # (sweep, last output)
+        for task, done in zip(self.tasks, self.done, strict=True):
+            assert done is not None
+            max_err = max(max_err, done.max_err)
+            for s in done.sums:                     # chunk by chunk, in order
+                abs_sum += float(s)
+            ints = done.ints
+            saturations += int(ints[_I_SAT])
+            monotonic &= bool(ints[_I_MONO])
+            if previous is not None and previous[0] == task.k:
+                monotonic &= (int(ints[_I_FIRST]) - previous[1]) * self.sign >= 0
+            previous = (task.k, int(ints[_I_LAST]))
+            if task.k == 0:
+                first_bin = task.start // self.per_bin
+                by_bin[first_bin:first_bin + done.bins.size] = done.bins
+                hist_total += done.hist
+            for name, (bad, at) in done.engines.items():
+                mismatches[name] += bad
+                if at >= 0 and first_bad[name] is None:
+                    first_bad[name] = (lo + task.start + at,
+                                       0 if task.temp is None else int(task.temp))
+        temps = tuple(int(t) for t in self.temperatures if t is not None)
+        evaluations = self.n_codes * len(self.temperatures)
+        return SweepResult(
+            codes=self.n_codes, temperatures_centi=temps, evaluations=evaluations,
+            max_error_lsb=max_err, mean_abs_error_lsb=abs_sum / evaluations,
+            saturations=saturations, monotonic=monotonic, mismatches=mismatches,
+            first_mismatch=first_bad, max_error_by_bin=by_bin,
+            error_histogram=(np.linspace(-self.bound, self.bound, HISTOGRAM_BINS + 1),
+                             hist_total))
+
+
 def sweep_static(design: Design, temperatures_centi: Sequence[int | None], *,
                  bound: float, engines: dict[str, SettledEngine] | None = None,
                  threads: int | None = None) -> SweepResult:
@@ -172,81 +410,5 @@ def sweep_static(design: Design, temperatures_centi: Sequence[int | None], *,
 
     ``bound`` sets the histogram's range; ``engines`` are compared on every code.
     """
-    engines = engines or {}
-    p = static_params(design)
-    lo, hi = design.code_min, design.code_max
-    n_codes = hi - lo + 1
-    chunk = min(CHUNK, n_codes)
-    if n_codes & (n_codes - 1) or n_codes < _BLOCK:
-        raise ValueError("the code range must be a power of two of at least 128 codes")
-    per_bin = max(1, n_codes // STATIC_BINS)
-    width = float(np.linspace(-bound, bound, HISTOGRAM_BINS + 1)[1] + bound)
-    sign = 1 if design.constants.scale_mul >= 0 else -1
-    by_bin = np.zeros(STATIC_BINS)
-    tasks = [(k, temp, start) for k, temp in enumerate(temperatures_centi)
-             for start in range(0, n_codes, chunk)]
-    no_expected = np.zeros(1, dtype=np.int32)
-
-    def run(task: tuple[int, int | None, int]) -> tuple[float, float, I64, F64, I64,
-                                                        dict[str, tuple[int, int]]]:
-        k, temp, start = task
-        first = lo + start
-        count = min(chunk, n_codes - start)
-        want = k == 0
-        bins = np.zeros(count // per_bin if want else 1)
-        hist = np.zeros(HISTOGRAM_BINS, dtype=np.int64)
-        t = 0 if temp is None else int(temp)
-        ints = np.zeros(6, dtype=np.int64)
-        engine_ints: dict[str, tuple[int, int]] = {}
-        expected = no_expected
-        tref = int(p.ints[P_TREF])
-        for j, (name, engine) in enumerate(engines.items()):
-            buffer = np.empty(count, dtype=np.int32)
-            engine(first, t if temp is not None else tref, buffer)
-            if j == 0:
-                expected = buffer
-            elif not np.array_equal(buffer, expected):
-                # compared with the first engine; the kernel compares that one with the model
-                at = int(np.flatnonzero(buffer != expected)[0])
-                engine_ints[name] = (int(np.count_nonzero(buffer != expected)), at)
-        m, s = _chunk(first, count, t, temp is not None, p.ints, p.lin, p.floats, p.flin,
-                      sign, bound, width, per_bin if want else 0, bins, hist, expected,
-                      bool(engines), ints)
-        for j, name in enumerate(engines):
-            if j == 0 or name not in engine_ints:
-                engine_ints[name] = (int(ints[_I_MISMATCH]), int(ints[_I_FIRST_MISMATCH]))
-        return m, s, ints.copy(), bins, hist, engine_ints
-
-    with ThreadPoolExecutor(max_workers=threads or _workers()) as pool:
-        results = list(pool.map(run, tasks))
-
-    max_err, abs_sum, saturations, monotonic = 0.0, 0.0, 0, True
-    hist_total = np.zeros(HISTOGRAM_BINS)
-    mismatches = dict.fromkeys(engines, 0)
-    first_bad: dict[str, tuple[int, int] | None] = dict.fromkeys(engines)
-    previous: tuple[int, int] | None = None     # (sweep, last output)
-    for (k, temp, start), (m, s, ints, bins, hist, engine_ints) in zip(tasks, results,
-                                                                      strict=True):
-        max_err = max(max_err, m)
-        abs_sum += s
-        saturations += int(ints[_I_SAT])
-        monotonic &= bool(ints[_I_MONO])
-        if previous is not None and previous[0] == k:
-            monotonic &= (int(ints[_I_FIRST]) - previous[1]) * sign >= 0
-        previous = (k, int(ints[_I_LAST]))
-        if k == 0:
-            first_bin = start // per_bin
-            by_bin[first_bin:first_bin + bins.size] = bins
-            hist_total += hist
-        for name, (bad, at) in engine_ints.items():
-            mismatches[name] += bad
-            if at >= 0 and first_bad[name] is None:
-                first_bad[name] = (lo + start + at, 0 if temp is None else int(temp))
-    temps = tuple(int(t) for t in temperatures_centi if t is not None)
-    evaluations = n_codes * len(temperatures_centi)
-    return SweepResult(
-        codes=n_codes, temperatures_centi=temps, evaluations=evaluations,
-        max_error_lsb=max_err, mean_abs_error_lsb=abs_sum / evaluations,
-        saturations=saturations, monotonic=monotonic, mismatches=mismatches,
-        first_mismatch=first_bad, max_error_by_bin=by_bin,
-        error_histogram=(np.linspace(-bound, bound, HISTOGRAM_BINS + 1), hist_total))
+    return StaticSweep(design, temperatures_centi, bound=bound, engines=engines,
+                       threads=threads).result()
