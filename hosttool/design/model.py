@@ -7,7 +7,8 @@ record, in exact integer arithmetic (the design proves nothing overflows): the o
 for the cascade's shape (chain.py: the filter recursion sample by sample, the statistics and
 the static path vectorised per block), or without a cache folder the generic loop
 ``_chain_run``, which gives the same integers. The static path is one compiled function
-(``static_word``), which the exhaustive sweep (static_sweep.py) also uses.
+(``static_word``); the exhaustive sweep (verify/sweep.py) runs the same operations in the
+form a sweep at one temperature allows, held to them by its tests.
 
 Both run a record from reset (all filter state zero). Inputs: raw codes (sign-extended ADC
 codes) and optionally temperatures in 0.01 C, one per code; outputs: one value per output
