@@ -2,6 +2,7 @@
 
 ``compute_budget`` turns a validated spec into plain numbers (``Budget``); ``Budget.to_json``
 gives the stable JSON object of ``hosttool check --json`` (keys documented in the README).
+Plain float arithmetic throughout: ``check`` imports no numpy.
 """
 
 from __future__ import annotations
@@ -9,19 +10,17 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, replace
 
-import numpy as np
-
 from hosttool.errors import DesignError
 from hosttool.physics.adc import (
     PEAK_TO_PEAK_OVER_RMS,
     Converter,
     adc_sinc_magnitude,
     alias_hz,
-    aliases_hz,
     best_gain,
     rejection_db,
 )
 from hosttool.physics.bridge import bridge_of, lead_desensitisation
+from hosttool.physics.grid import even_points
 from hosttool.spec.schema import Sensor, Spec, StrainBridge
 
 MAINS_HZ = (50.0, 60.0)
@@ -109,18 +108,15 @@ def _mains(spec: Spec, band_hz: float) -> tuple[MainsLine, ...]:
     fd = spec.adc.data_rate_sps
     lines = []
     for f in MAINS_HZ:
-        sweep = np.linspace(f * (1 - MAINS_TOLERANCE), f * (1 + MAINS_TOLERANCE), 2001)
-        mags = adc_sinc_magnitude(spec.adc, sweep)
-        aliases = aliases_hz(sweep, fd)
-        nominal = float(adc_sinc_magnitude(spec.adc, f))
-        in_band_mask = aliases <= band_hz
+        sweep = even_points(f * (1 - MAINS_TOLERANCE), f * (1 + MAINS_TOLERANCE), 2001)
+        aliases = [alias_hz(x, fd) for x in sweep]
         lines.append(MainsLine(
             frequency_hz=f,
-            rejection_db=rejection_db(nominal),
-            worst_rejection_db=rejection_db(float(np.max(mags))),
+            rejection_db=rejection_db(adc_sinc_magnitude(spec.adc, f)),
+            worst_rejection_db=rejection_db(max(adc_sinc_magnitude(spec.adc, x) for x in sweep)),
             alias_hz=alias_hz(f, fd),
-            alias_band_hz=(float(np.min(aliases)), float(np.max(aliases))),
-            in_band=bool(np.any(in_band_mask)),
+            alias_band_hz=(min(aliases), max(aliases)),
+            in_band=any(a <= band_hz for a in aliases),
         ))
     return tuple(lines)
 

@@ -3,17 +3,22 @@
 Conventions: a bipolar differential input range of +-Vref / G; code = round(Vin * G / Vref *
 2^(bits-1)) saturated to [-2^(bits-1), 2^(bits-1) - 1]; one LSB at the input is
 Vref / (G * 2^(bits-1)) volts. Rounding is to the nearest code (ties to even, numpy.rint).
+
+Everything ``check`` needs here is plain float arithmetic; numpy is imported only by the
+functions that take or give arrays, when they are called.
 """
 
 from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-
-import numpy as np
-from numpy.typing import ArrayLike, NDArray
+from typing import TYPE_CHECKING, overload
 
 from hosttool.spec.schema import Adc
+
+if TYPE_CHECKING:
+    import numpy as np
+    from numpy.typing import ArrayLike, NDArray
 
 #: Peak-to-peak over RMS for Gaussian noise, the usual "noise-free" convention
 #: (common practice, no published source).
@@ -55,11 +60,15 @@ class Converter:
 
     def code(self, volts: ArrayLike) -> NDArray[np.int64]:
         """Input volts to codes, rounded to nearest and saturated at the limits."""
+        import numpy as np  # deferred on purpose: the scalar figures of check need no numpy
+
         scaled = np.rint(np.asarray(volts, dtype=np.float64) / self.lsb_v)
         return np.clip(scaled, self.code_min, self.code_max).astype(np.int64)
 
     def volts(self, code: ArrayLike) -> NDArray[np.float64]:
         """Codes to the input volts at the centre of each code."""
+        import numpy as np  # deferred on purpose: the scalar figures of check need no numpy
+
         return np.asarray(code, dtype=np.float64) * self.lsb_v
 
     def noise_counts_rms(self, noise_uv_rms: float) -> float:
@@ -77,23 +86,52 @@ def best_gain(adc: Adc, peak_input_v: float, reference_v: float) -> int | None:
     return max(fitting) if fitting else None
 
 
-def sinc_magnitude(freq_hz: ArrayLike, data_rate_sps: float, order: int,
-                   decimation: float | None = None) -> NDArray[np.float64]:
-    """|H(f)| of a sinc^k decimation filter whose output rate is data_rate_sps.
+def _power(x: float, k: int) -> float:
+    """x^k correctly rounded (the exact power of the double x, rounded once): the same bits
+    on every machine, whatever its libm or SIMD pow. Python's int / int is correctly
+    rounded, and a double is an exact ratio of integers."""
+    num, den = x.as_integer_ratio()
+    num_k: int = num ** k
+    den_k: int = den ** k
+    return num_k / den_k
+
+
+def _sinc_at(f: float, data_rate_sps: float, order: int, decimation: float | None) -> float:
+    u = math.pi * f / data_rate_sps
+    if decimation is None:
+        h = 1.0 if u == 0 else math.sin(u) / u
+    else:
+        den = decimation * math.sin(u / decimation)
+        h = 1.0 if den == 0 else math.sin(u) / den
+    return _power(abs(h), order)
+
+
+@overload
+def sinc_magnitude(freq_hz: float, data_rate_sps: float, order: int,
+                   decimation: float | None = None) -> float: ...
+
+
+@overload
+def sinc_magnitude(freq_hz: NDArray[np.float64], data_rate_sps: float, order: int,
+                   decimation: float | None = None) -> NDArray[np.float64]: ...
+
+
+def sinc_magnitude(freq_hz: float | NDArray[np.float64], data_rate_sps: float, order: int,
+                   decimation: float | None = None) -> float | NDArray[np.float64]:
+    """|H(f)| of a sinc^k decimation filter whose output rate is data_rate_sps: a float for a
+    frequency, an array of the same shape for an array of them.
 
     With a decimation ratio N: |sin(pi f / fd) / (N sin(pi f / (N fd)))|^k; without one, the
     limit N -> infinity, |sin(pi f / fd) / (pi f / fd)|^k (from memory; the notches at
     multiples of fd are checked numerically in the tests).
     """
+    if isinstance(freq_hz, int | float):
+        return _sinc_at(float(freq_hz), data_rate_sps, order, decimation)
+    import numpy as np  # deferred on purpose: check asks for single frequencies only
+
     f = np.asarray(freq_hz, dtype=np.float64)
-    u = np.pi * f / data_rate_sps
-    with np.errstate(invalid="ignore", divide="ignore"):
-        if decimation is None:
-            h = np.where(u == 0, 1.0, np.sin(u) / np.where(u == 0, 1.0, u))
-        else:
-            den = decimation * np.sin(u / decimation)
-            h = np.where(den == 0, 1.0, np.sin(u) / np.where(den == 0, 1.0, den))
-    return np.abs(h) ** order
+    values = [_sinc_at(x, data_rate_sps, order, decimation) for x in f.ravel().tolist()]
+    return np.array(values, dtype=np.float64).reshape(f.shape)
 
 
 def rejection_db(magnitude: float, floor_db: float = 300.0) -> float:
@@ -104,14 +142,9 @@ def rejection_db(magnitude: float, floor_db: float = 300.0) -> float:
 
 
 def alias_hz(freq_hz: float, sample_rate: float) -> float:
-    """Where a tone lands after sampling at sample_rate: its distance to the nearest multiple."""
-    return float(aliases_hz(freq_hz, sample_rate))
-
-
-def aliases_hz(freq_hz: ArrayLike, sample_rate: float) -> NDArray[np.float64]:
-    """``alias_hz`` of every frequency of an array."""
-    f = np.asarray(freq_hz, dtype=np.float64)
-    return np.abs(f - sample_rate * np.round(f / sample_rate))
+    """Where a tone lands after sampling at sample_rate: its distance to the nearest multiple
+    (ties of the multiple to even)."""
+    return abs(freq_hz - sample_rate * round(freq_hz / sample_rate))
 
 
 def sinc_decimation(adc: Adc) -> float | None:
@@ -119,6 +152,15 @@ def sinc_decimation(adc: Adc) -> float | None:
     return adc.modulator_rate_hz / adc.data_rate_sps if adc.modulator_rate_hz else None
 
 
-def adc_sinc_magnitude(adc: Adc, freq_hz: ArrayLike) -> NDArray[np.float64]:
+@overload
+def adc_sinc_magnitude(adc: Adc, freq_hz: float) -> float: ...
+
+
+@overload
+def adc_sinc_magnitude(adc: Adc, freq_hz: NDArray[np.float64]) -> NDArray[np.float64]: ...
+
+
+def adc_sinc_magnitude(adc: Adc, freq_hz: float | NDArray[np.float64]
+                       ) -> float | NDArray[np.float64]:
     """|H(f)| of this ADC's own sinc^k filter (its order, data rate and decimation)."""
     return sinc_magnitude(freq_hz, adc.data_rate_sps, adc.sinc_order, sinc_decimation(adc))

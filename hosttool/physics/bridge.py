@@ -22,18 +22,37 @@ textbook Rg / (Rg + 2 RL)); three-wire puts one lead in
 the gauge arm and one in the adjacent arm (no offset, sensitivity Rg / (Rg + RL)); a half
 bridge is wired with three wires the same way; a four-wire full bridge loses 2 RL in the
 excitation leads; a six-wire (remote sense) full bridge loses nothing.
+
+The methods take a number or an array: a Python number is worked in plain floats (``check``
+imports no numpy), anything else as a float64 array, with the same operations in the same
+order, so a value has the same bits either way.
 """
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, replace
+from typing import TYPE_CHECKING, Any
 
-import numpy as np
-from numpy.typing import ArrayLike, NDArray
-
+from hosttool.physics.grid import even_points
 from hosttool.spec.schema import Sensor, StrainBridge, Transducer
 
+if TYPE_CHECKING:
+    import numpy as np
+    from numpy.typing import ArrayLike, NDArray
+
 MICRO = 1e-6
+
+
+def _elementwise(formula: Callable[[Any], Any], x: ArrayLike) -> NDArray[np.float64] | float:
+    """``formula`` (arithmetic only) of a number as a float, of anything else as a float64
+    array (a float for a 0-d result)."""
+    if isinstance(x, int | float):
+        return float(formula(float(x)))
+    import numpy as np  # deferred on purpose: check works on numbers and needs no numpy
+
+    out = formula(np.asarray(x, dtype=np.float64))
+    return float(out) if out.ndim == 0 else out
 
 
 @dataclass(frozen=True)
@@ -52,17 +71,19 @@ class Bridge:
     m_max: float
     unit: str
 
+    def _ratio(self, m: Any) -> Any:
+        return (self.alpha * m + self.beta) / (self.gamma * m + self.delta) + self.offset
+
     def ratio(self, m: ArrayLike) -> NDArray[np.float64] | float:
         """Exact output ratio Vo/Vex (V/V) at measurand m (output units)."""
-        m = np.asarray(m, dtype=np.float64)
-        out = (self.alpha * m + self.beta) / (self.gamma * m + self.delta) + self.offset
-        return float(out) if out.ndim == 0 else out
+        return _elementwise(self._ratio, m)
 
     def measurand(self, r: ArrayLike) -> NDArray[np.float64] | float:
         """Exact inverse: measurand (output units) from the output ratio r (V/V)."""
-        r = np.asarray(r, dtype=np.float64) - self.offset
-        out = (self.beta - self.delta * r) / (self.gamma * r - self.alpha)
-        return float(out) if out.ndim == 0 else out
+        def inverse(r: Any) -> Any:
+            r = r - self.offset
+            return (self.beta - self.delta * r) / (self.gamma * r - self.alpha)
+        return _elementwise(inverse, r)
 
     @property
     def zero_ratio(self) -> float:
@@ -78,20 +99,19 @@ class Bridge:
         """What a linear reading of the exact bridge shows for measurand ``m``: the output
         ratio's change from zero divided by the tangent sensitivity at zero (output units).
         Equal to ``m`` for a linear bridge; the linearisation maps it back to ``m``."""
-        m = np.asarray(m, dtype=np.float64)
-        out = (np.asarray(self.ratio(m)) - self.zero_ratio) / self.sensitivity
-        return float(out) if out.ndim == 0 else out
+        return _elementwise(lambda m: (self._ratio(m) - self.zero_ratio) / self.sensitivity, m)
+
+    def _ratio_linear(self, m: Any) -> Any:
+        return self.zero_ratio + self.sensitivity * m
 
     def ratio_linear(self, m: ArrayLike) -> NDArray[np.float64] | float:
         """Linearised output ratio: the tangent at zero, r(0) + r'(0) m (V/V)."""
-        m = np.asarray(m, dtype=np.float64)
-        out = self.zero_ratio + self.sensitivity * m
-        return float(out) if out.ndim == 0 else out
+        return _elementwise(self._ratio_linear, m)
 
     def nonlinearity_pct_fs(self, points: int = 2001) -> float:
         """Largest |exact - linearised| over the range, in % of the full-scale output change."""
-        m = np.linspace(self.m_min, self.m_max, points)
-        deviation = np.max(np.abs(np.asarray(self.ratio(m)) - np.asarray(self.ratio_linear(m))))
+        deviation = max(abs(self._ratio(m) - self._ratio_linear(m))
+                        for m in even_points(self.m_min, self.m_max, points))
         full_scale = max(abs(self.m_min), abs(self.m_max)) * abs(self.sensitivity)
         return float(100.0 * deviation / full_scale)
 
