@@ -12,7 +12,6 @@ import json
 import os
 import sys
 import time
-import traceback
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any, TypeVar
@@ -43,6 +42,8 @@ def guarded(func: F) -> F:
             return func(*args, **kwargs)
         except HostToolError as exc:
             if click.get_current_context().find_root().params.get("debug"):
+                import traceback  # deferred on purpose: only --debug prints one
+
                 traceback.print_exc()
             click.echo(f"hosttool: error: {exc}", err=True)
             sys.exit(2)

@@ -15,10 +15,10 @@ from fractions import Fraction
 import numpy as np
 import pytest
 
-from hosttool.physics.adc import alias_hz, sinc_magnitude
+from hosttool.physics.adc import adc_sinc_magnitude, adc_sinc_peak, alias_hz, sinc_magnitude
 from hosttool.physics.bridge import bridge_of
 from hosttool.physics.grid import even_points
-from hosttool.spec.schema import StrainBridge, Transducer
+from hosttool.spec.schema import Adc, StrainBridge, Transducer
 from hosttool.util.resources import example_names, example_text
 
 HEAVY = ("numpy", "scipy", "numba", "matplotlib")
@@ -107,6 +107,19 @@ def test_sinc_power_is_correctly_rounded(order, decimation):
         assert sinc_magnitude(f, 10.0, order, decimation) == float(Fraction(base) ** order)
     assert sinc_magnitude(np.array(freqs), 10.0, order, decimation).tolist() == [
         sinc_magnitude(f, 10.0, order, decimation) for f in freqs]
+
+
+@pytest.mark.parametrize("order", [1, 2, 3, 4, 5])
+@pytest.mark.parametrize("rate, modulator", [(10.0, None), (400.0, None), (50.0, 64000.0),
+                                             (7.5, None), (1000.0, 256000.0), (13.0, 6500.0)])
+def test_sinc_peak_is_the_largest_magnitude(order, rate, modulator):
+    """One power of the largest single-stage |H| has the bits of the largest k-th power."""
+    adc = Adc(bits=24, pga_gain=None, pga_gains=(1,), reference_max_v=5.0, data_rate_sps=rate,
+              noise_uv_rms=0.1, sinc_order=order, modulator_rate_hz=modulator,
+              overload_margin_pct=10.0)
+    for f in (50.0, 60.0):
+        sweep = even_points(f * 0.99, f * 1.01, 2001)
+        assert adc_sinc_peak(adc, sweep) == max(adc_sinc_magnitude(adc, x) for x in sweep)
 
 
 def test_alias_rounds_to_the_nearest_multiple_like_numpy():

@@ -15,6 +15,7 @@ from hosttool.physics.adc import (
     PEAK_TO_PEAK_OVER_RMS,
     Converter,
     adc_sinc_magnitude,
+    adc_sinc_peak,
     alias_hz,
     best_gain,
     rejection_db,
@@ -113,7 +114,7 @@ def _mains(spec: Spec, band_hz: float) -> tuple[MainsLine, ...]:
         lines.append(MainsLine(
             frequency_hz=f,
             rejection_db=rejection_db(adc_sinc_magnitude(spec.adc, f)),
-            worst_rejection_db=rejection_db(max(adc_sinc_magnitude(spec.adc, x) for x in sweep)),
+            worst_rejection_db=rejection_db(adc_sinc_peak(spec.adc, sweep)),
             alias_hz=alias_hz(f, fd),
             alias_band_hz=(min(aliases), max(aliases)),
             in_band=any(a <= band_hz for a in aliases),

@@ -11,6 +11,7 @@ functions that take or give arrays, when they are called.
 from __future__ import annotations
 
 import math
+from collections.abc import Iterable
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, overload
 
@@ -88,22 +89,23 @@ def best_gain(adc: Adc, peak_input_v: float, reference_v: float) -> int | None:
 
 def _power(x: float, k: int) -> float:
     """x^k correctly rounded (the exact power of the double x, rounded once): the same bits
-    on every machine, whatever its libm or SIMD pow. Python's int / int is correctly
-    rounded, and a double is an exact ratio of integers."""
+    on every machine, whatever its libm or SIMD pow, and monotonic in x. Python's int / int
+    is correctly rounded, and a double is an exact ratio of integers."""
     num, den = x.as_integer_ratio()
     num_k: int = num ** k
     den_k: int = den ** k
     return num_k / den_k
 
 
-def _sinc_at(f: float, data_rate_sps: float, order: int, decimation: float | None) -> float:
+def _sinc_base(f: float, data_rate_sps: float, decimation: float | None) -> float:
+    """|H(f)| of one sinc stage (k = 1)."""
     u = math.pi * f / data_rate_sps
     if decimation is None:
         h = 1.0 if u == 0 else math.sin(u) / u
     else:
         den = decimation * math.sin(u / decimation)
         h = 1.0 if den == 0 else math.sin(u) / den
-    return _power(abs(h), order)
+    return abs(h)
 
 
 @overload
@@ -126,11 +128,12 @@ def sinc_magnitude(freq_hz: float | NDArray[np.float64], data_rate_sps: float, o
     multiples of fd are checked numerically in the tests).
     """
     if isinstance(freq_hz, int | float):
-        return _sinc_at(float(freq_hz), data_rate_sps, order, decimation)
+        return _power(_sinc_base(float(freq_hz), data_rate_sps, decimation), order)
     import numpy as np  # deferred on purpose: check asks for single frequencies only
 
     f = np.asarray(freq_hz, dtype=np.float64)
-    values = [_sinc_at(x, data_rate_sps, order, decimation) for x in f.ravel().tolist()]
+    values = [_power(_sinc_base(x, data_rate_sps, decimation), order)
+              for x in f.ravel().tolist()]
     return np.array(values, dtype=np.float64).reshape(f.shape)
 
 
@@ -164,3 +167,11 @@ def adc_sinc_magnitude(adc: Adc, freq_hz: float | NDArray[np.float64]
                        ) -> float | NDArray[np.float64]:
     """|H(f)| of this ADC's own sinc^k filter (its order, data rate and decimation)."""
     return sinc_magnitude(freq_hz, adc.data_rate_sps, adc.sinc_order, sinc_decimation(adc))
+
+
+def adc_sinc_peak(adc: Adc, freqs: Iterable[float]) -> float:
+    """The largest |H(f)| of this ADC's sinc^k over ``freqs``: the k-th power of the largest
+    single-stage |H|. The power is correctly rounded, hence monotonic, so this has the bits
+    of the largest of the per-frequency magnitudes, for one power instead of one each."""
+    rate, decimation = adc.data_rate_sps, sinc_decimation(adc)
+    return _power(max(_sinc_base(f, rate, decimation) for f in freqs), adc.sinc_order)

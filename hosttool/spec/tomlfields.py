@@ -7,8 +7,8 @@ refuse the rest with the nearest valid key as a hint. Every error is a one-line 
 
 from __future__ import annotations
 
-import difflib
 import re
+from collections.abc import Sequence
 from typing import Any
 
 from hosttool.errors import SpecError
@@ -43,8 +43,7 @@ class Table:
             return self.data[key]
         if required:
             # a misspelt required key would otherwise never reach the unknown-key check
-            near = difflib.get_close_matches(key, [k for k in self.data if k not in self.used],
-                                             n=1, cutoff=0.8)
+            near = _nearest(key, [k for k in self.data if k not in self.used], cutoff=0.8)
             hint = f" (is {near[0]!r} a misspelling of it?)" if near else ""
             raise self.ctx.error(self._field(key), f"missing required key{hint}",
                                  locate=self.path)
@@ -119,7 +118,7 @@ class Table:
         if bad is not None:
             raise self.fail(key, f"control character {bad} in {shown(value)}")
         if choices is not None and value not in choices:
-            near = difflib.get_close_matches(value, choices, n=1)
+            near = _nearest(value, choices)
             hint = f" (did you mean {near[0]!r}?)" if near else ""
             raise self.fail(key, f"{shown(value)} is not one of {', '.join(choices)}{hint}")
         return value
@@ -159,10 +158,18 @@ class Table:
         """Refuse keys that were never read, suggesting the nearest valid one."""
         for key in self.data:
             if key not in self.used:
-                near = difflib.get_close_matches(key, sorted(self.used), n=1, cutoff=0.5)
+                near = _nearest(key, sorted(self.used), cutoff=0.5)
                 hint = f" (did you mean {near[0]!r}?)" if near else ""
                 safe = key if key.isprintable() and len(key) <= SHOWN_CHARS else shown(key)
                 raise self.ctx.error(self._field(safe), f"unknown key{hint}")
+
+
+def _nearest(word: str, candidates: Sequence[str], cutoff: float = 0.6) -> list[str]:
+    """The candidate nearest ``word`` (difflib's ratio at least ``cutoff``), as a list of at
+    most one, for the hint of an error message."""
+    import difflib  # deferred on purpose: only a bad spec needs it, check starts without it
+
+    return difflib.get_close_matches(word, candidates, n=1, cutoff=cutoff)
 
 
 def describe(value: Any) -> str:
