@@ -36,7 +36,7 @@ from hosttool.design.chain import compiled_chain
 from hosttool.design.compiled import njit
 from hosttool.design.filters import FirStage
 from hosttool.design.fixedpoint import INT32_MAX, INT32_MIN
-from hosttool.design.resolve import LIN_FRAC, Design
+from hosttool.design.resolve import LIN_FRAC, Design, UnitConstants
 from hosttool.errors import HostToolError
 
 I64 = NDArray[np.int64]
@@ -102,10 +102,12 @@ class StaticParams:
     flin: tuple[float, ...]
 
 
-def static_params(design: Design, *, ideal: bool = False) -> StaticParams:
-    """The kernels' parameters for ``design``'s constants in force (``ideal``: reference
-    of the unquantised scale and linearisation)."""
-    c = design.constants
+def static_params(design: Design, *, ideal: bool = False,
+                  constants: UnitConstants | None = None) -> StaticParams:
+    """The kernels' parameters for ``design``'s constants in force, or for ``constants``
+    (checked by the caller: ``Design.check_in_force``); ``ideal``: reference of the
+    unquantised scale and linearisation."""
+    c = design.constants if constants is None else constants
     lin, tc = design.linearisation, design.temperature
     ints = [0] * 16
     ints[P_CODE_LOW], ints[P_CODE_HIGH] = design.code_min, design.code_max
@@ -505,11 +507,14 @@ def _named(design: Design, c: Cascade, run: IntegerRun, peaks: I64, sats: I64
     return run
 
 
-def static_integer(design: Design, codes: ArrayLike,
-                   temps_centi: ArrayLike | None = None) -> IntegerRun:
-    """The static path alone (a settled DC input: every filter's integer DC gain is 1)."""
+def static_integer(design: Design, codes: ArrayLike, temps_centi: ArrayLike | None = None,
+                   *, constants: UnitConstants | None = None) -> IntegerRun:
+    """The static path alone (a settled DC input: every filter's integer DC gain is 1),
+    with the design's constants in force or with ``constants`` (one unit's, checked by the
+    caller with ``Design.check_in_force``: the same outputs as ``static_integer`` of
+    ``design.with_constants(constants)``, without building that design)."""
     x, t = _inputs(design, codes, temps_centi)
-    p = static_params(design)
+    p = static_params(design, constants=constants)
     out, peaks, sats, flags = _static_run(x, _NO_TEMPS if t is None else t, t is not None,
                                           p.ints, p.lin)
     run = IntegerRun(output=out, rail=(flags & _FLAG_RAIL) != 0,

@@ -209,6 +209,12 @@ class Design:
         """One output LSB, the output rate and the range in LSB, as exact fractions."""
         return output_meaning(self.spec, self.decimation)
 
+    def check_in_force(self, constants: UnitConstants) -> None:
+        """Refuse (DesignError) the constants ``with_constants`` refuses, building nothing:
+        the check a production line runs per unit before the static path."""
+        _checked_static_nodes(self.spec, self.cascade, self.guard_bits, self.scale,
+                              self.linearisation, self.temperature, constants)
+
     def with_constants(self, constants: UnitConstants) -> Design:
         """The same design carrying one unit's constants (bounds recomputed for them).
 
@@ -420,19 +426,11 @@ def _unit_fields(spec: Spec, cascade: CascadeAnalysis, g: int, scale: Scale,
                  lin: LinPolynomial | None, temp: TempComp | None, c: UnitConstants,
                  filter_warnings: tuple[str, ...]) -> dict[str, Any]:
     """The Design fields that depend on the constants in force, after checking them."""
-    check_constants(c, bits=spec.adc.bits, g=g, scale=scale, lin=lin, temp=temp,
-                    source=spec.source)
+    static = _checked_static_nodes(spec, cascade, g, scale, lin, temp, c)
     input_bound = 1 << (spec.adc.bits + g)
     scaled_bound = _scaled_bound(cascade, input_bound, scale)
     errors = _errors(spec, cascade, scale, c, lin, temp, scaled_bound)
     design_errors = _design_errors(cascade, input_bound, scale, c, lin)
-    chain_bound = cascade.total.l1 * input_bound + cascade.output_rounding
-    static = _static_nodes(chain_bound, scale, lin, temp, c,
-                           spec.adc.data_rate_sps / cascade.decimation)
-    for node in static:
-        if node.word == 64 and node.headroom_bits < 0:
-            raise DesignError(f"{spec.source}: {node.name} can reach {node.bound:.4g}, beyond "
-                              "int64: narrow the temperature range or the coefficient limits")
     out_bound = static[-1].bound
     warnings = list(filter_warnings)
     if out_bound > INT32_MAX:
@@ -440,6 +438,23 @@ def _unit_fields(spec: Spec, cascade: CascadeAnalysis, g: int, scale: Scale,
                         "LSB and saturate at the int32 limits")
     return {"constants": c, "errors": errors, "design_errors": design_errors,
             "static_nodes": static, "output_bound_lsb": out_bound, "warnings": tuple(warnings)}
+
+
+def _checked_static_nodes(spec: Spec, cascade: CascadeAnalysis, g: int, scale: Scale,
+                          lin: LinPolynomial | None, temp: TempComp | None,
+                          c: UnitConstants) -> tuple[NodeBound, ...]:
+    """The static path's nodes for constants ``c``, after checking them: inside their
+    formats, and no 64-bit product that could overflow (DesignError otherwise)."""
+    check_constants(c, bits=spec.adc.bits, g=g, scale=scale, lin=lin, temp=temp,
+                    source=spec.source)
+    chain_bound = cascade.total.l1 * (1 << (spec.adc.bits + g)) + cascade.output_rounding
+    static = _static_nodes(chain_bound, scale, lin, temp, c,
+                           spec.adc.data_rate_sps / cascade.decimation)
+    for node in static:
+        if node.word == 64 and node.headroom_bits < 0:
+            raise DesignError(f"{spec.source}: {node.name} can reach {node.bound:.4g}, beyond "
+                              "int64: narrow the temperature range or the coefficient limits")
+    return static
 
 
 def _static_nodes(chain_bound: float, scale: Scale, lin: LinPolynomial | None,

@@ -161,34 +161,71 @@ def binding_of(design: Design, layout_version: int) -> bytes:
     return format_identity(design).digest if layout_version == 2 else spec_hash8(design)
 
 
+_STRUCT = struct.Struct(STRUCT_FORMAT)
+_SERIAL_CHARS = struct.Struct(f"{SERIAL_BYTES}c")      # the serial field's items
+_CRC = struct.Struct("<I")
+_NO_LIN = (0,) * LIN_SLOTS
+
+
+@dataclass(frozen=True)
+class BlockFormat:
+    """What every block of one layout made for one design holds alike: the binding (format
+    identity or spec hash), the shifts, the flags and the reference temperature. Built once
+    per design (``of``: the identity's SHA-256 is the costly part); ``encode`` adds a unit's
+    serial, time and constants."""
+
+    layout_version: int
+    binding: bytes
+    scale_shift: int
+    guard_bits: int
+    flags: int
+    tc_zero_shift: int
+    tc_span_shift: int
+    ref_temp_centi: int
+    source: str                 # the spec, named by refusals
+
+    @classmethod
+    def of(cls, design: Design, layout_version: int = LAYOUT_VERSION) -> BlockFormat:
+        """The blocks of ``layout_version`` for ``design`` (1: as hosttool 0.2 made them,
+        bound to the spec's hash, for tests of the firmware already in the field)."""
+        if layout_version not in READABLE_VERSIONS:
+            raise InputError(f"layout version {layout_version}: this tool writes "
+                             f"{READABLE_VERSIONS}")
+        temp = design.temperature
+        return cls(layout_version=layout_version, binding=binding_of(design, layout_version),
+                   scale_shift=design.scale.shift, guard_bits=design.guard_bits,
+                   flags=design_flags(design), tc_zero_shift=temp.zero_shift if temp else 0,
+                   tc_span_shift=temp.span_shift if temp else 0,
+                   ref_temp_centi=temp.reference_centi if temp else 0,
+                   source=design.spec.source)
+
+    def encode(self, constants: UnitConstants, *, serial: str, cal_time_utc: int) -> bytes:
+        """The block's bytes for one unit (exactly BLOCK_SIZE; CRC last)."""
+        raw_serial = serial.encode("ascii", errors="strict") if serial.isascii() else b""
+        if not raw_serial or len(raw_serial) > SERIAL_BYTES or not serial.isprintable():
+            raise InputError(f"serial {serial!r}: must be 1 to {SERIAL_BYTES} printable ASCII "
+                             "characters")
+        check_lin_slots(len(constants.lin), self.source)
+        body = _STRUCT.pack(
+            MAGIC, self.layout_version, BLOCK_SIZE,
+            *_SERIAL_CHARS.unpack(raw_serial.ljust(SERIAL_BYTES, b"\0")), cal_time_utc,
+            *self.binding, constants.offset, constants.scale_mul, self.scale_shift,
+            self.guard_bits, len(constants.lin), self.flags, *constants.lin,
+            *_NO_LIN[len(constants.lin):], constants.tc_zero, constants.tc_span,
+            self.tc_zero_shift, self.tc_span_shift, 0, 0, self.ref_temp_centi, 0)[:-4]
+        return body + _CRC.pack(zlib.crc32(body))
+
+
 def encode(design: Design, constants: UnitConstants, *, serial: str, cal_time_utc: int,
            layout_version: int = LAYOUT_VERSION) -> bytes:
     """The block's bytes for one unit (exactly BLOCK_SIZE; CRC last).
 
     ``layout_version`` 1 makes a block as hosttool 0.2 did (bound to the spec's hash), for
-    tests of the firmware already in the field.
+    tests of the firmware already in the field. Many units of one design: build its
+    ``BlockFormat`` once and call its ``encode``.
     """
-    if layout_version not in READABLE_VERSIONS:
-        raise InputError(f"layout version {layout_version}: this tool writes "
-                         f"{READABLE_VERSIONS}")
-    raw_serial = serial.encode("ascii", errors="strict") if serial.isascii() else b""
-    if not raw_serial or len(raw_serial) > SERIAL_BYTES or not serial.isprintable():
-        raise InputError(f"serial {serial!r}: must be 1 to {SERIAL_BYTES} printable ASCII "
-                         "characters")
-    temp = design.temperature
-    check_lin_slots(len(constants.lin), design.spec.source)
-    lin_values = list(constants.lin) + [0] * (LIN_SLOTS - len(constants.lin))
-    values: list[object] = [
-        MAGIC, layout_version, BLOCK_SIZE,
-        *[bytes([b]) for b in raw_serial.ljust(SERIAL_BYTES, b"\0")],
-        cal_time_utc, *binding_of(design, layout_version),
-        constants.offset, constants.scale_mul, design.scale.shift, design.guard_bits,
-        len(constants.lin), design_flags(design), *lin_values, constants.tc_zero,
-        constants.tc_span, temp.zero_shift if temp else 0, temp.span_shift if temp else 0, 0, 0,
-        temp.reference_centi if temp else 0, 0,
-    ]
-    body = struct.pack(STRUCT_FORMAT, *values)[:-4]
-    return body + struct.pack("<I", zlib.crc32(body))
+    return BlockFormat.of(design, layout_version).encode(constants, serial=serial,
+                                                          cal_time_utc=cal_time_utc)
 
 
 def decode(data: bytes) -> CalBlock:

@@ -1,15 +1,22 @@
-"""The calibration block as a flash image: Intel HEX (intelhex library) or raw bytes.
+"""The calibration block as a flash image: Intel HEX or raw bytes.
 
 The block (calblock.encode) sits at ``target.calblock_address`` and is padded to
 ``target.calblock_size`` with 0xFF, the value of erased flash, so flashing the image also
-clears whatever an older block left in the rest of the area. intelhex writes a type 04
-extended linear address record wherever the address passes a 64 KiB boundary. Merging
-with a firmware image refuses any firmware byte inside the block's area.
+clears whatever an older block left in the rest of the area. Merging with a firmware image
+(read and merged by the intelhex library) refuses any firmware byte inside the block's area.
+
+Intel HEX text is written here (``intel_hex``), a few lines instead of the library's general
+writer (a production line writes one image per unit): 16 data bytes per record from the
+first address of each run of bytes, a record never crossing a 64 KiB boundary, a type 04
+extended linear address record first and wherever the upper 16 bits change when any byte
+lies above 0xFFFF (none otherwise), the start address record (type 03 or 05) first if the
+image has one, the type 01 end record last, "\\n" line ends: byte for byte what intelhex's
+``write_hex_file(byte_count=16)`` writes (tests/test_hexfile.py holds it to intelhex and
+bincopy).
 """
 
 from __future__ import annotations
 
-import io
 from pathlib import Path
 
 from intelhex import IntelHex, IntelHexError
@@ -50,11 +57,66 @@ def padded(design: Design, block: bytes) -> bytes:
     return block + bytes([ERASED]) * (size - len(block))
 
 
+#: Data bytes per record.
+RECORD_BYTES = 16
+#: The end-of-file record (type 01).
+END_RECORD = ":00000001FF"
+
+
+def _record(address: int, kind: int, data: bytes) -> str:
+    """One record: ``:LLAAAATT<data>CC``, CC the two's complement of the sum of the others."""
+    raw = bytes((len(data), address >> 8, address & 0xFF, kind)) + data
+    return ":" + (raw + bytes(((-sum(raw)) & 0xFF,))).hex().upper()
+
+
+def intel_hex(runs: list[tuple[int, bytes]], *, start: dict[str, int] | None = None) -> str:
+    """Intel HEX text of ``runs`` ((address, bytes), not overlapping; runs that touch are
+    one run) and the start address ``start`` ({"EIP": a}, or {"CS": c, "IP": i} as
+    intelhex holds it), if any."""
+    joined: list[tuple[int, bytes]] = []
+    for address, data in sorted((a, d) for a, d in runs if d):
+        if joined and joined[-1][0] + len(joined[-1][1]) == address:
+            joined[-1] = (joined[-1][0], joined[-1][1] + data)
+        else:
+            joined.append((address, data))
+    runs = joined
+    lines = []
+    if start:
+        if sorted(start) == ["CS", "IP"]:
+            lines.append(_record(0, 3, start["CS"].to_bytes(2, "big")
+                                 + start["IP"].to_bytes(2, "big")))
+        elif sorted(start) == ["EIP"]:
+            lines.append(_record(0, 5, start["EIP"].to_bytes(4, "big")))
+        else:
+            raise ValueError(f"start address {start}: neither CS and IP nor EIP")
+    if runs and runs[-1][0] + len(runs[-1][1]) > 1 << 32:
+        raise ValueError("Intel HEX addresses end at 0xFFFFFFFF")
+    extended = bool(runs) and runs[-1][0] + len(runs[-1][1]) - 1 > 0xFFFF
+    upper = -1
+    for address, data in runs:
+        pos = 0
+        while pos < len(data):
+            at = address + pos
+            if extended and at >> 16 != upper:
+                upper = at >> 16
+                lines.append(_record(0, 4, upper.to_bytes(2, "big")))
+            size = min(RECORD_BYTES, 0x10000 - (at & 0xFFFF), len(data) - pos)
+            lines.append(_record(at & 0xFFFF, 0, data[pos:pos + size]))
+            pos += size
+    lines.append(END_RECORD)
+    return "\n".join(lines) + "\n"
+
+
 def hex_text(image: IntelHex) -> str:
-    """Intel HEX text, 16 data bytes per record, "\\n" line ends, start address if any."""
-    out = io.StringIO()
-    image.write_hex_file(out, write_start_addr=True, byte_count=16)
-    return out.getvalue()
+    """Intel HEX text of an image (``intel_hex`` of its runs and start address)."""
+    return intel_hex([(low, image.tobinstr(start=low, end=high - 1))
+                      for low, high in image.segments()], start=image.start_addr)
+
+
+def block_hex(design: Design, block: bytes) -> bytes:
+    """The Intel HEX image of the padded block alone, as ASCII bytes (one unit of a lot)."""
+    address, _ = block_area(design)
+    return intel_hex([(address, padded(design, block))]).encode("ascii")
 
 
 def read_hex(path: Path) -> IntelHex:

@@ -31,6 +31,7 @@ from __future__ import annotations
 import fcntl
 import hashlib
 import json
+import math
 import multiprocessing
 import os
 import re
@@ -44,9 +45,8 @@ from pathlib import Path
 from hosttool import __version__
 from hosttool.design.cached import cached_design
 from hosttool.errors import HostToolError, InputError, OutputError
-from hosttool.formats.calblock import encode
 from hosttool.formats.caljson import constants_json
-from hosttool.formats.hexfile import block_area, block_image, hex_text
+from hosttool.formats.hexfile import block_area, block_hex
 from hosttool.formats.readings import (
     ReadingsFile,
     UnitReadings,
@@ -142,6 +142,18 @@ def refused(serial: str, reason: str) -> Prepared:
 RefusedUnit = tuple[str, str]
 
 
+#: The record's JSON texts of a unit, written as ``json.dumps`` writes them (tests hold them
+#: to it): its constants (canonical: sorted keys, no spaces) and figures (sorted keys) by
+#: encoders made once; each reading and point by a template, its numbers by ``repr`` (what
+#: json writes for a finite float; the reader refuses readings that are not finite).
+_CONSTANTS = json.JSONEncoder(sort_keys=True, separators=(",", ":"))
+_FIGURES = json.JSONEncoder(sort_keys=True)
+_READING = ('{"line": %d, "reference": %r, "temperature_c": %r, "raw_mean_counts": %r, '
+            '"raw_std_counts": %r, "samples": %d, "direction": "%s"}')
+_POINT = ('{"line": %d, "reference": %r, "temperature_c": %r, "direction": "%s", '
+          '"output": %s, "error": %s, "limit": %s}')
+
+
 def prepare(ctx: CalibrationContext, unit: UnitReadings | RefusedUnit,
             override: int | None) -> Prepared:
     """Calibrate one unit and build its image bytes (pure: no files, no record).
@@ -156,40 +168,48 @@ def prepare(ctx: CalibrationContext, unit: UnitReadings | RefusedUnit,
         result = calibrate_unit(ctx, unit, cal_time_utc=cal_time)
         image = None
         if result.passed:
-            block = encode(ctx.design, result.constants, serial=unit.serial,
-                           cal_time_utc=cal_time)
-            image = hex_text(block_image(ctx.design, block)).encode("ascii")
+            block = ctx.block.encode(result.constants, serial=unit.serial,
+                                     cal_time_utc=cal_time)
+            image = block_hex(ctx.design, block)
     except HostToolError as exc:
         return refused(unit.serial, str(exc))
     except (ArithmeticError, ValueError) as exc:
         return refused(unit.serial, f"{unit.where(0)}: serial {unit.serial}: the tool failed "
                        f"on this unit ({exc.__class__.__name__}: {exc}); please report it "
                        "with the readings")
-    limits = point_limits(ctx, unit.reference)
     criteria = [{"key": c.key, "label": c.label, "value": c.value, "limit": c.limit,
                  "unit": c.unit, "source": c.source, "pass": c.passed} for c in result.criteria]
-    points = [{"line": p.line, "reference": p.reference, "temperature_c": p.temperature_c,
-               "direction": "up" if p.up else "down", "output": p.output, "error": p.error,
-               "limit": None if limits[i] == float("inf") else float(limits[i])}
-              for i, p in enumerate(result.points)]
+    n = unit.reference.size
+    if result.output is None:
+        output = error = ["null"] * n
+    else:
+        output = list(map(repr, result.output.tolist()))
+        error = list(map(repr, (result.output - unit.reference).tolist()))
+    limit = ["null" if v == math.inf else repr(v)
+             for v in point_limits(ctx, unit.reference).tolist()]
+    points = [_POINT % (line, ref, temp, "up" if up else "down", output[i], error[i], limit[i])
+              for i, (line, ref, temp, up) in enumerate(zip(
+                  unit.lines.tolist(), unit.reference.tolist(), unit.temperature_c.tolist(),
+                  unit.up.tolist(), strict=True))]
     return Prepared(
         serial=unit.serial, refused="", verdict=result.verdict, reasons=result.reasons,
         cal_time_utc=format_time_utc(cal_time),
-        constants=json.dumps(constants_json(result.constants), sort_keys=True,
-                             separators=(",", ":")),
-        figures=json.dumps(result.figures, sort_keys=True), image=image,
-        criteria=json.dumps(criteria), points=json.dumps(points),
-        readings=json.dumps(readings_json(unit)))
+        constants=_CONSTANTS.encode(constants_json(result.constants)),
+        figures=_FIGURES.encode(result.figures), image=image,
+        criteria=json.dumps(criteria), points="[" + ", ".join(points) + "]",
+        readings=readings_json(unit))
 
 
-def readings_json(unit: UnitReadings) -> list[dict[str, object]]:
-    """The unit's readings as read (the record keeps them), in file order."""
-    return [{"line": int(unit.lines[i]), "reference": float(unit.reference[i]),
-             "temperature_c": float(unit.temperature_c[i]),
-             "raw_mean_counts": float(unit.raw_mean[i]),
-             "raw_std_counts": float(unit.raw_std[i]), "samples": int(unit.samples[i]),
-             "direction": "up" if unit.up[i] else "down"}
-            for i in range(unit.reference.size)]
+def readings_json(unit: UnitReadings) -> str:
+    """The unit's readings as read (the record keeps them), in file order: the JSON text of
+    a list of objects (line, reference, temperature_c, raw_mean_counts, raw_std_counts,
+    samples, direction)."""
+    rows = zip(unit.lines.tolist(), unit.reference.tolist(), unit.temperature_c.tolist(),
+               unit.raw_mean.tolist(), unit.raw_std.tolist(), unit.samples.tolist(),
+               unit.up.tolist(), strict=True)
+    return "[" + ", ".join([_READING % (line, ref, temp, mean, std, samples,
+                                        "up" if up else "down")
+                            for line, ref, temp, mean, std, samples, up in rows]) + "]"
 
 
 def _traced(p: Prepared, readings: ReadingsFile, register: dict[str, Standard] | None,

@@ -11,9 +11,15 @@ polynomial still applies and only zero and span are fitted. The fit is ordinary 
 squares (numpy.linalg.lstsq) over every reading, in [1, u] or [1, dT, u, u dT]. The
 "polynomial" mode then fits the per-unit C_0 .. C_n in the design's normalised variable
 w = s / 2^K to what the firmware must output. Every constant is rounded into the design's
-format and checked with ``design.check_constants`` (via ``Design.with_constants``); the
-verdict comes from the unit's readings run through the bit-exact static path
+format and checked (``Design.check_in_force``: what ``Design.with_constants`` refuses);
+the verdict comes from the unit's readings run through the bit-exact static path
 (``model.static_integer``) with those constants: what the firmware will output.
+
+A production line runs this once per unit, at a dozen readings each, where plain Python
+beats numpy's cost per call: the checks and figures work on lists. The fit itself stays
+numpy's (``lstsq``, and the SVD ``numpy.linalg.cond`` takes for the condition number): a
+closed form or one decomposition for both changes the last bits of the fitted zero and
+span, which the record keeps.
 
 Refused (``InputError``, exit status 2): saturated readings, non-monotonic response,
 readings of one point that disagree, too few points, noise far above the ADC's, missing
@@ -36,6 +42,7 @@ from hosttool import __version__
 from hosttool.design.model import static_integer
 from hosttool.design.resolve import LIN_FRAC, Design, UnitConstants
 from hosttool.errors import DesignError, InputError
+from hosttool.formats.calblock import BlockFormat
 from hosttool.formats.caljson import (
     FORMAT,
     FORMAT_VERSION,
@@ -165,6 +172,7 @@ class CalibrationContext:
     ratio_per_count: float     # bridge output ratio (V/V) per count
     code_min: int
     code_max: int
+    block: BlockFormat         # what every unit's calibration block holds alike
 
     @classmethod
     def of(cls, design: Design) -> CalibrationContext:
@@ -188,7 +196,7 @@ class CalibrationContext:
             nominal_b=bridge.sensitivity / design.ratio_per_count,
             noise_counts=design.budget.noise_counts_rms,
             ratio_per_count=design.ratio_per_count,
-            code_min=design.code_min, code_max=design.code_max)
+            code_min=design.code_min, code_max=design.code_max, block=BlockFormat.of(design))
 
     def shape(self, reference: F64) -> F64:
         """u(m): the reference in the unit's fitted variable (output units)."""
@@ -210,6 +218,7 @@ class _Layout:
     up: list[bool]
     group: list[int]
     points: dict[tuple[int, int], list[int]]
+    split: list[tuple[list[float], list[float]]]    # each point's means: (up, down)
 
     @classmethod
     def of(cls, ctx: CalibrationContext, u: UnitReadings) -> _Layout:
@@ -223,32 +232,29 @@ class _Layout:
         points: dict[tuple[int, int], list[int]] = {}
         for i, ref in enumerate(u.reference.tolist()):
             points.setdefault((group[i], round(ref / ctx.resolution)), []).append(i)
-        return cls(u.raw_mean.tolist(), u.up.tolist(), group, points)
-
-    def directions(self, idx: list[int]) -> tuple[list[float], list[float]]:
-        """The means at one point, split into up and down readings."""
-        return ([self.mean[i] for i in idx if self.up[i]],
-                [self.mean[i] for i in idx if not self.up[i]])
+        mean, up = u.raw_mean.tolist(), u.up.tolist()
+        split = [([mean[i] for i in idx if up[i]], [mean[i] for i in idx if not up[i]])
+                 for idx in points.values()]
+        return cls(mean, up, group, points, split)
 
 
 def _refuse_rows(ctx: CalibrationContext, u: UnitReadings) -> None:
     spec = ctx.design.spec
     assert spec.calibration is not None
-    top = u.raw_mean + SATURATION_SIGMA * u.raw_std
-    bottom = u.raw_mean - SATURATION_SIGMA * u.raw_std
-    clipped = np.nonzero((top >= ctx.code_max) | (bottom <= ctx.code_min))[0]
-    if clipped.size:
-        i = int(clipped[0])
-        limit = ctx.code_max if top[i] >= ctx.code_max else ctx.code_min
-        raise InputError(f"{u.where(i)}: raw_mean_counts: {u.raw_mean[i]:.1f} counts (std "
-                         f"{u.raw_std[i]:.1f}) reaches the {spec.adc.bits}-bit limit {limit}: "
-                         "the ADC saturated; check the gain, the wiring and the load")
+    mean, std = u.raw_mean.tolist(), u.raw_std.tolist()
+    for i, (m, s) in enumerate(zip(mean, std, strict=True)):
+        top, bottom = m + SATURATION_SIGMA * s, m - SATURATION_SIGMA * s
+        if top >= ctx.code_max or bottom <= ctx.code_min:
+            limit = ctx.code_max if top >= ctx.code_max else ctx.code_min
+            raise InputError(f"{u.where(i)}: raw_mean_counts: {m:.1f} counts (std {s:.1f}) "
+                             f"reaches the {spec.adc.bits}-bit limit {limit}: the ADC "
+                             "saturated; check the gain, the wiring and the load")
     far = NOISE_REFUSE_FACTOR * spec.calibration.max_noise_ratio * ctx.noise_counts
-    noisy = np.nonzero(u.raw_std > far)[0]
-    if noisy.size:
-        i = int(noisy[0])
-        raise InputError(f"{u.where(i)}: raw_std_counts: {u.raw_std[i]:.4g} counts is "
-                         f"{u.raw_std[i] / ctx.noise_counts:.3g} x the ADC noise "
+    noisy = next((i for i, s in enumerate(std) if s > far), None)
+    if noisy is not None:
+        s = std[noisy]
+        raise InputError(f"{u.where(noisy)}: raw_std_counts: {s:.4g} counts is "
+                         f"{s / ctx.noise_counts:.3g} x the ADC noise "
                          f"({ctx.noise_counts:.4g} counts RMS), far above "
                          f"calibration.max_noise_ratio = {spec.calibration.max_noise_ratio:g}: "
                          "the reading was not settled (vibration, draught, loose wiring?); "
@@ -292,7 +298,7 @@ def _refuse_points(ctx: CalibrationContext, u: UnitReadings, lay: _Layout) -> No
             raise InputError(f"{where}: temperature compensation needs readings at two or "
                              f"more temperatures (more than {TEMP_GROUP_C:g} C apart), each "
                              f"with at least two reference values; found {usable}")
-    split = [lay.directions(idx) for idx in lay.points.values()]
+    split = lay.split
     if cal.max_hysteresis is not None and not any(up and down for up, down in split):
         raise InputError(f"{where}: calibration.max_hysteresis is set but no reference has "
                          "both 'up' and 'down' readings")
@@ -303,13 +309,13 @@ def _refuse_points(ctx: CalibrationContext, u: UnitReadings, lay: _Layout) -> No
 
 
 def _refuse_non_monotonic(u: UnitReadings, lay: _Layout) -> None:
-    steps: list[tuple[float, int, int]] = []
-    for g in sorted(set(lay.group)):
-        keys = sorted(k for gg, k in lay.points if gg == g)
-        members = [lay.points[(g, k)] for k in keys]
-        means = [sum(lay.mean[i] for i in idx) / len(idx) for idx in members]
-        steps += [(means[j] - means[j - 1], members[j - 1][0], members[j][0])
-                  for j in range(1, len(keys))]
+    steps: list[tuple[float, int, int]] = []      # between neighbouring references
+    last: tuple[int, float, int] | None = None     # group, mean, first reading of a point
+    for (g, _), idx in sorted(lay.points.items()):
+        mean = sum(lay.mean[i] for i in idx) / len(idx)
+        if last is not None and last[0] == g:
+            steps.append((mean - last[1], last[2], idx[0]))
+        last = (g, mean, idx[0])
     direction = math.copysign(1.0, sum(step for step, _, _ in steps))
     for step, before, after in steps:
         if step * direction <= 0:
@@ -342,21 +348,23 @@ def _fit(ctx: CalibrationContext, u: UnitReadings, shape: F64) -> _Fit:
     design matrix, columns scaled to 1, has condition number at most ``MAX_CONDITION``),
     and the result must be finite and inside the physics range (``_refuse_fit``)."""
     temp = ctx.design.spec.temperature
-    ones = np.ones_like(shape)
+    x = np.ones((shape.size, 2 if temp is None else 4))
     if temp is None:
-        x = np.column_stack((ones, shape))
+        x[:, 1] = shape
     else:
         dt = u.temperature_c - temp.reference_c
-        x = np.column_stack((ones, dt, shape, shape * dt))
-    where = _unit_where(u)
+        x[:, 1], x[:, 2], x[:, 3] = dt, shape, shape * dt
     with np.errstate(all="ignore"):
-        norms = np.max(np.abs(x), axis=0)
-        if not np.all(np.isfinite(x)) or not np.all(norms > 0):
-            raise InputError(f"{where}: the readings do not determine the fit (a column of "
-                             "the straight-line model is zero or not finite)")
-        condition = float(np.linalg.cond(x / norms))
+        norms = np.abs(x).max(axis=0)
+        if not np.isfinite(x).all() or not (norms > 0).all():
+            raise InputError(f"{_unit_where(u)}: the readings do not determine the fit (a "
+                             "column of the straight-line model is zero or not finite)")
+        # numpy.linalg.cond(x / norms) without its checks: the ratio of the extreme
+        # singular values (x is finite, a column is not zero)
+        singular = np.linalg.svd(x / norms, compute_uv=False)
+        condition = float(singular[0] / singular[-1])
         if not condition <= MAX_CONDITION:
-            raise InputError(f"{where}: the readings do not determine the fit (condition "
+            raise InputError(f"{_unit_where(u)}: the readings do not determine the fit (condition "
                              f"number {condition:.3g} above {MAX_CONDITION:g}): spread the "
                              "references and temperatures")
         beta = np.linalg.lstsq(x, u.raw_mean, rcond=None)[0]
@@ -374,7 +382,7 @@ def _refuse_fit(ctx: CalibrationContext, u: UnitReadings, beta: NDArray[np.float
     outside the ADC's code range, or a response over the whole measuring range smaller
     than the ADC's own noise (nothing was measured) or larger than the code range."""
     where = _unit_where(u)
-    if not np.all(np.isfinite(beta)):
+    if not np.isfinite(beta).all():
         raise InputError(f"{where}: the fit of the readings is not finite")
     codes = ctx.code_max - ctx.code_min
     if not ctx.code_min <= beta[0] <= ctx.code_max:
@@ -475,8 +483,7 @@ def _figures(ctx: CalibrationContext, fit: _Fit, lay: _Layout, u: UnitReadings,
     b = abs(fit.b)
     hysteresis: float | None = None
     repeatability: float | None = None
-    for idx in lay.points.values():
-        up, down = lay.directions(idx)
+    for up, down in lay.split:
         if up and down:
             hysteresis = max(hysteresis or 0.0,
                              abs(sum(up) / len(up) - sum(down) / len(down)) / b)
@@ -488,16 +495,16 @@ def _figures(ctx: CalibrationContext, fit: _Fit, lay: _Layout, u: UnitReadings,
         "zero_mv_per_v": fit.a * ctx.ratio_per_count * 1e3,
         "span_counts_per_unit": fit.b,
         "span_deviation_pct": (fit.b / ctx.nominal_b - 1) * 100,
-        "nonlinearity": float(np.max(np.abs(fit.residual))) / b,
+        "nonlinearity": max(map(abs, fit.residual.tolist())) / b,
         "hysteresis": hysteresis,             # None: no point read both up and down
         "repeatability": repeatability,       # None: no point repeated
-        "noise_ratio": float(u.raw_std.max()) / ctx.noise_counts,
+        "noise_ratio": max(u.raw_std.tolist()) / ctx.noise_counts,
     }
     if ctx.design.temperature is not None:
         figures["zero_tc_ppm_fs_per_c"] = fit.z / fit.b / ctx.full_scale * 1e6
         figures["span_tc_ppm_per_c"] = fit.k * 1e6
     if error is not None:
-        figures["max_error"] = float(np.max(np.abs(error)))
+        figures["max_error"] = max(map(abs, error.tolist()))
     return figures
 
 
@@ -523,9 +530,9 @@ def _criteria(ctx: CalibrationContext, u: UnitReadings, figures: dict[str, float
     if cal.oiml_class is not None:
         ratio = None
         if error is not None:
-            mpe = np.array([mpe_intervals(cal.oiml_class, r / ctx.resolution)
-                            for r in u.reference]) * ctx.resolution
-            ratio = float(np.max(np.abs(error) / mpe))
+            ratio = max(abs(e) / (mpe_intervals(cal.oiml_class, r / ctx.resolution)
+                                  * ctx.resolution)
+                        for e, r in zip(error.tolist(), u.reference.tolist(), strict=True))
         rows.append(("oiml_mpe_ratio", f"error / mpe of class {cal.oiml_class}", ratio, 1.0,
                      "", "calibration.oiml_class (OIML R 76-1)"))
     rows += [
@@ -585,15 +592,15 @@ def calibrate_unit(ctx: CalibrationContext, u: UnitReadings, *,
     error: F64 | None = None
     formats_ok, formats_reason = True, ""
     try:
-        unit_design = ctx.design.with_constants(constants)
+        ctx.design.check_in_force(constants)     # what with_constants(constants) refuses
     except DesignError as exc:
         formats_ok = False
         formats_reason = str(exc).split(": ", 1)[-1]
     else:
         codes = np.rint(u.raw_mean).astype(np.int64)
         temps = np.rint(u.temperature_c * 100).astype(np.int64)
-        firmware = static_integer(unit_design, codes, temps).output * ctx.resolution
-        output = np.asarray(firmware, dtype=np.float64)
+        firmware = static_integer(ctx.design, codes, temps, constants=constants).output
+        output = firmware * ctx.resolution
         error = output - u.reference
     figures = _figures(ctx, fit, lay, u, error)
     return UnitCalibration(
