@@ -600,7 +600,7 @@ def calibrate_unit(ctx: CalibrationContext, u: UnitReadings, *,
         codes = np.rint(u.raw_mean).astype(np.int64)
         temps = np.rint(u.temperature_c * 100).astype(np.int64)
         firmware = static_integer(ctx.design, codes, temps, constants=constants).output
-        output = firmware * ctx.resolution
+        output = np.multiply(firmware, ctx.resolution, dtype=np.float64)
         error = output - u.reference
     figures = _figures(ctx, fit, lay, u, error)
     return UnitCalibration(
