@@ -27,8 +27,8 @@ import difflib
 import hashlib
 import math
 import re
-from collections.abc import Callable
-from dataclasses import dataclass, field
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -82,10 +82,6 @@ class ReadingsFile:
     source: str
     sha256: str
     units: dict[str, UnitReadings]
-    #: with ``per_unit``: serial -> the one-line reason its readings were refused
-    refused: dict[str, str] = field(default_factory=dict)
-    #: every serial, refused or not, in order of first appearance
-    order: tuple[str, ...] = ()
 
 
 def _columns(header: list[str], spec: Spec, source: str, line: int) -> dict[str, int]:
@@ -178,8 +174,6 @@ def _numbers(name: str, cells: list[str], low: float, high: float, span: str,
 
 def _checks(cells: dict[str, list[str]], rules: _Rules, has_time: bool) -> list[_Check]:
     """Every check of every row, in the order a row's problems are reported."""
-    serials = cells["serial"]
-    serial_bad = np.array([SERIAL_RE.fullmatch(s) is None for s in serials], dtype=bool)
     codes = rules.code_max - rules.code_min
     slack = 1e-9 * rules.high             # decimal round-off at the ends of the range
     samples_text = cells["samples"]
@@ -188,9 +182,6 @@ def _checks(cells: dict[str, list[str]], rules: _Rules, has_time: bool) -> list[
                                                              strict=True)], dtype=np.int64)
     directions = [d.lower() if d.isascii() else d for d in cells["direction"]]
     checks = [
-        _Check("serial", np.array(serials, dtype=object), serial_bad,
-               lambda i: f"{shown(serials[i])} must be 1 to 16 letters, digits, '.', '_' or "
-                         "'-', starting with a letter or digit"),
         _numbers(rules.ref_name, cells[rules.ref_name], rules.low - slack, rules.high + slack,
                  f"the sensor range {rules.low:g} .. {rules.high:g}"),
         _numbers("temperature_c", cells["temperature_c"], rules.t_low, rules.t_high,
@@ -229,87 +220,182 @@ def _split(line: str, source: str, number: int) -> list[str]:
         raise InputError(f"{source}:{number}: not a CSV line: {exc}") from None
 
 
-def parse_readings(text: str, spec: Spec, source: str, *, per_unit: bool = False
-                   ) -> ReadingsFile:
-    """Validate the CSV text of a readings file for ``spec``; ``source`` names it in errors.
+@dataclass(frozen=True)
+class UnitRows:
+    """One unit's rows as found in the file, in file order, not yet checked: 1-based line
+    numbers and the text of each line (of the header's width)."""
 
-    One check, for all rows at once: each column is validated as a whole, and the first
-    refused row (in file order; within it, the first refused column in the order of
-    ``_checks``) is reported as ``file:line: column: reason``. The whole file is refused
-    for that row, unless ``per_unit`` (``batch``): then a row with a valid serial refuses
-    only its unit (``ReadingsFile.refused``, the first problem of each unit); a bad header,
-    a row of the wrong width or a bad serial still refuse the whole file."""
-    body = [(n, ln.removesuffix("\r")) for n, ln in enumerate(text.split("\n"), start=1)
-            if ln.strip() and not ln.lstrip().startswith("#")]
-    if not body:
+    serial: str
+    lines: list[int]
+    texts: list[str]
+
+    def cells(self, source: str) -> list[list[str]]:
+        """Each row's cells, padding stripped."""
+        return [[c.strip(CELL_PADDING) for c in (_split(t, source, n) if '"' in t
+                                                 else t.split(","))]
+                for n, t in zip(self.lines, self.texts, strict=True)]
+
+
+@dataclass(frozen=True)
+class RefusedRows:
+    """A unit whose readings were refused: its first refused row and why."""
+
+    serial: str
+    line: int
+    reason: str                      # file:line: column: reason
+
+
+@dataclass(frozen=True)
+class ReadingsLayout:
+    """What every row of one readings file is checked against: the file's name, its
+    columns (name -> position) and the spec's rules. Small: it travels to worker processes."""
+
+    source: str
+    index: dict[str, int]
+    rules: _Rules
+
+    def check(self, units: Sequence[UnitRows]) -> list[UnitReadings | RefusedRows]:
+        """Check the rows of these units (all at once) and give, for each unit in order,
+        its readings or its first refused row (in file order; within the row, the first
+        refused column in the order of ``_checks``)."""
+        lines = [n for u in units for n in u.lines]
+        rows = [r for u in units for r in u.cells(self.source)]
+        checks, bad_rows = _check_rows(rows, self)
+        cols = {check.name: check.values for check in checks}
+        line_numbers = np.array(lines, dtype=np.int64)
+        has_time = "time_utc" in self.index
+        standards = self.index.get("standards")
+        out: list[UnitReadings | RefusedRows] = []
+        first = 0
+        for unit in units:
+            stop = first + len(unit.lines)
+            bad = np.flatnonzero(bad_rows[first:stop])
+            if bad.size:
+                i = first + int(bad[0])
+                out.append(RefusedRows(unit.serial, lines[i],
+                                       _problem(checks, lines, i, self.source)))
+            else:
+                idx = slice(first, stop)
+                out.append(UnitReadings(
+                    serial=unit.serial, source=self.source, lines=line_numbers[idx],
+                    reference=cols[self.rules.ref_name][idx],
+                    temperature_c=cols["temperature_c"][idx],
+                    raw_mean=cols["raw_mean_counts"][idx], raw_std=cols["raw_std_counts"][idx],
+                    samples=cols["samples"][idx], up=cols["direction"][idx],
+                    cal_time_utc=int(cols["time_utc"][idx].max()) if has_time else None,
+                    times_utc=cols["time_utc"][idx] if has_time else None,
+                    standards=tuple(tuple(r[standards].split()) for r in rows[idx])
+                    if standards is not None else ()))
+            first = stop
+        return out
+
+
+def _check_rows(rows: list[list[str]], layout: ReadingsLayout
+                ) -> tuple[list[_Check], NDArray[np.bool_]]:
+    """Every check of these rows, each column at once, and the rows any of them refuses."""
+    columns = {name: [r[i] for r in rows] for name, i in layout.index.items()}
+    checks = _checks(columns, layout.rules, "time_utc" in layout.index)
+    bad_rows = np.zeros(len(rows), dtype=bool)
+    for check in checks:
+        bad_rows |= check.bad
+    return checks, bad_rows
+
+
+def _problem(checks: list[_Check], lines: list[int], i: int, source: str) -> str:
+    """``file:line: column: reason`` for the first check refusing row ``i``."""
+    check = next(c for c in checks if c.bad[i])
+    return f"{source}:{lines[i]}: {check.name}: {check.message(i)}"
+
+
+@dataclass(frozen=True)
+class SplitReadings:
+    """A readings file checked as a whole (header, widths, serials) and split by unit; the
+    rows themselves are checked by ``layout.check``, in worker processes for ``batch``."""
+
+    layout: ReadingsLayout
+    sha256: str
+    units: list[UnitRows]            # in order of first appearance
+
+
+def split_readings(text: str, spec: Spec, source: str) -> SplitReadings:
+    """Check what refuses a whole readings file and split its rows by unit.
+
+    Refused here, for the whole file, in this order: no header or no rows, a control
+    character in the header, a bad header, a row of the wrong width (the first in file
+    order), a bad serial (its first row in file order)."""
+    numbers: list[int] = []
+    texts: list[str] = []
+    for n, line_text in enumerate(text.split("\n"), start=1):
+        if line_text.strip() and not line_text.lstrip().startswith("#"):
+            numbers.append(n)
+            texts.append(line_text.removesuffix("\r"))
+    if not texts:
         raise InputError(f"{source}: no header and no readings")
-    header_line, header_text = body[0]
+    header_line, header_text = numbers[0], texts[0]
     bad_char = control_character(header_text)
     if bad_char is not None:
         raise InputError(f"{source}:{header_line}: header: control character {bad_char}")
     header = _split(header_text, source, header_line)
     index = _columns(header, spec, source, header_line)
-    if len(body) == 1:
+    if len(texts) == 1:
         raise InputError(f"{source}: the header is there but no readings follow")
-    rules = _Rules.of(spec)
-    has_time = "time_utc" in index
-    lines = [n for n, _ in body[1:]]
-    rows = [_split(t, source, n) if '"' in t else t.split(",") for n, t in body[1:]]
-    for line, cells in zip(lines, rows, strict=True):
-        if len(cells) != len(header):
-            raise InputError(f"{source}:{line}: {len(cells)} fields, the header has "
-                             f"{len(header)}")
-    columns = {name: [r[i].strip(CELL_PADDING) for r in rows] for name, i in index.items()}
-    checks = _checks(columns, rules, has_time)
-    bad_rows = np.zeros(len(rows), dtype=bool)
-    for check in checks:
-        bad_rows |= check.bad
-
-    def problem(i: int) -> str:
-        check = next(c for c in checks if c.bad[i])
-        return f"{source}:{lines[i]}: {check.name}: {check.message(i)}"
-
-    serial_bad = checks[0].bad
-    if serial_bad.any() or (bad_rows.any() and not per_unit):
-        raise InputError(problem(int(np.argmax(serial_bad if serial_bad.any() else bad_rows))))
-    refused: dict[str, str] = {}
-    for i in np.flatnonzero(bad_rows).tolist():
-        refused.setdefault(columns["serial"][i], problem(i))
-    cols = {check.name: check.values for check in checks}
-    members: dict[str, list[int]] = {}
-    for i, serial in enumerate(columns["serial"]):
-        members.setdefault(serial, []).append(i)
-    order = tuple(members)
-    for serial in refused:
-        del members[serial]
-    line_numbers = np.array(lines, dtype=np.int64)
-    units = {}
-    for serial, idx_list in members.items():
-        idx = np.array(idx_list)
-        units[serial] = UnitReadings(
-            serial=serial, source=source, lines=line_numbers[idx],
-            reference=cols[rules.ref_name][idx], temperature_c=cols["temperature_c"][idx],
-            raw_mean=cols["raw_mean_counts"][idx], raw_std=cols["raw_std_counts"][idx],
-            samples=cols["samples"][idx], up=cols["direction"][idx],
-            cal_time_utc=int(cols["time_utc"][idx].max()) if has_time else None,
-            times_utc=cols["time_utc"][idx] if has_time else None,
-            standards=tuple(tuple(columns["standards"][i].split()) for i in idx_list)
-            if "standards" in index else ())
+    width = len(header)
+    quoted = {i: _split(texts[i], source, numbers[i]) for i in range(1, len(texts))
+              if '"' in texts[i]}
+    for i in range(1, len(texts)):
+        found = len(quoted[i]) if i in quoted else texts[i].count(",") + 1
+        if found != width:
+            raise InputError(f"{source}:{numbers[i]}: {found} fields, the header has {width}")
+    serial_at = index["serial"]
+    units: dict[str, UnitRows] = {}
+    for i in range(1, len(texts)):
+        cells = quoted[i] if i in quoted else texts[i].split(",", serial_at + 1)
+        serial = cells[serial_at].strip(CELL_PADDING)
+        unit = units.get(serial)
+        if unit is None:
+            unit = units[serial] = UnitRows(serial, [], [])
+        unit.lines.append(numbers[i])
+        unit.texts.append(texts[i])
+    bad = [u for u in units.values() if SERIAL_RE.fullmatch(u.serial) is None]
+    if bad:
+        first = min(bad, key=lambda u: u.lines[0])
+        raise InputError(f"{source}:{first.lines[0]}: serial: {shown(first.serial)} must be "
+                         "1 to 16 letters, digits, '.', '_' or '-', starting with a letter "
+                         "or digit")
+    layout = ReadingsLayout(source, index, _Rules.of(spec))
     digest = hashlib.sha256(text.encode("utf-8")).hexdigest()
-    return ReadingsFile(source=source, sha256=digest, units=units, refused=refused,
-                        order=order)
+    return SplitReadings(layout, digest, list(units.values()))
 
 
-def load_readings(path: Path, spec: Spec, *, per_unit: bool = False) -> ReadingsFile:
-    """Read and validate a readings file; any problem is a one-line ``InputError``
-    (``per_unit``: see ``parse_readings``)."""
+def parse_readings(text: str, spec: Spec, source: str) -> ReadingsFile:
+    """Validate the CSV text of a readings file for ``spec``; ``source`` names it in errors.
+
+    One check, for all rows at once: each column is validated as a whole, and the first
+    refused row (in file order; within it, the first refused column in the order of
+    ``_checks``) refuses the whole file as ``file:line: column: reason``. (``batch`` instead
+    refuses such a unit alone: ``split_readings`` and ``ReadingsLayout.check``.)"""
+    split = split_readings(text, spec, source)
+    checked = split.layout.check(split.units)
+    refusals = [r for r in checked if isinstance(r, RefusedRows)]
+    if refusals:
+        raise InputError(min(refusals, key=lambda r: r.line).reason)
+    return ReadingsFile(source=source, sha256=split.sha256,
+                        units={r.serial: r for r in checked if isinstance(r, UnitReadings)})
+
+
+def read_readings(path: Path) -> str:
+    """The text of a readings file (a byte-order mark dropped); one-line ``InputError``."""
     try:
-        text = path.read_text(encoding="utf-8-sig")
+        return path.read_text(encoding="utf-8-sig")
     except FileNotFoundError:
         raise InputError(f"{path}: no such file") from None
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"{path}: cannot read: {exc.__class__.__name__}: {exc}") from None
-    return parse_readings(text, spec, source=str(path), per_unit=per_unit)
+
+
+def load_readings(path: Path, spec: Spec) -> ReadingsFile:
+    """Read and validate a readings file; any problem is a one-line ``InputError``."""
+    return parse_readings(read_readings(path), spec, source=str(path))
 
 
 def unit_cal_time(unit: UnitReadings, override: int | None) -> int:

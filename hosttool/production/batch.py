@@ -1,7 +1,9 @@
 """``hosttool batch``: a whole lot from one readings file to images and the production record.
 
-Per unit: calibrate (calibration.py) and, if it passed, encode the block and its Intel HEX
-image in memory (in worker processes with ``jobs`` > 1). Units are then recorded in groups
+The main process checks the readings file as a whole and splits it by unit. Per unit, in
+chunks of ``CHUNK`` (in worker processes with ``jobs`` > 1): check its rows, calibrate
+(fit.py) and, if it passed, encode the block and its Intel HEX image in memory, and name
+the reference standards used. The main process then records units in groups
 of ``GROUP``, each group in one transaction of the record (SQLite or PostgreSQL, record.py)
 holding the group's serials and the output folder's lock: each unit is decided from the
 record, the group's images are written (temporary files, one flush, renames, folder fsync),
@@ -37,6 +39,7 @@ import os
 import re
 import socket
 from collections.abc import Callable, Iterable, Iterator
+from concurrent.futures import Executor, ThreadPoolExecutor
 from contextlib import contextmanager
 from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
@@ -48,9 +51,12 @@ from hosttool.errors import HostToolError, InputError, OutputError
 from hosttool.formats.caljson import constants_json
 from hosttool.formats.hexfile import block_area, block_hex
 from hosttool.formats.readings import (
-    ReadingsFile,
+    ReadingsLayout,
+    RefusedRows,
     UnitReadings,
-    load_readings,
+    UnitRows,
+    read_readings,
+    split_readings,
     unit_cal_time,
 )
 from hosttool.formats.standards import Standard, load_standards
@@ -61,7 +67,7 @@ from hosttool.production.record_open import open_record
 from hosttool.production.traceability import check_lot_standards, unit_standards
 from hosttool.spec.schema import load_spec
 from hosttool.util.atomic import make_folder
-from hosttool.util.atomic_group import write_group
+from hosttool.util.atomic_group import FSYNC_THREADS, write_group
 from hosttool.util.text import control_character, shown
 from hosttool.util.utctime import format_time_utc, parse_time_utc
 
@@ -138,10 +144,6 @@ def refused(serial: str, reason: str) -> Prepared:
     return Prepared(serial, reason, "", (), "", "", "", None)
 
 
-#: A unit whose readings were refused: (serial, reason).
-RefusedUnit = tuple[str, str]
-
-
 #: The record's JSON texts of a unit, written as ``json.dumps`` writes them (tests hold them
 #: to it): its constants (canonical: sorted keys, no spaces) and figures (sorted keys) by
 #: encoders made once; each reading and point by a template, its numbers by ``repr`` (what
@@ -154,15 +156,15 @@ _POINT = ('{"line": %d, "reference": %r, "temperature_c": %r, "direction": "%s",
           '"output": %s, "error": %s, "limit": %s}')
 
 
-def prepare(ctx: CalibrationContext, unit: UnitReadings | RefusedUnit,
+def prepare(ctx: CalibrationContext, unit: UnitReadings | RefusedRows,
             override: int | None) -> Prepared:
     """Calibrate one unit and build its image bytes (pure: no files, no record).
 
     Anything that goes wrong with this unit alone refuses it, with the reason, and never
     the lot: bad input (``HostToolError``), and, should a unit still reach one, an
     arithmetic failure (reported as a fault of the tool)."""
-    if isinstance(unit, tuple):
-        return refused(*unit)
+    if isinstance(unit, RefusedRows):
+        return refused(unit.serial, unit.reason)
     try:
         cal_time = unit_cal_time(unit, override)
         result = calibrate_unit(ctx, unit, cal_time_utc=cal_time)
@@ -212,14 +214,14 @@ def readings_json(unit: UnitReadings) -> str:
                             for line, ref, temp, mean, std, samples, up in rows]) + "]"
 
 
-def _traced(p: Prepared, readings: ReadingsFile, register: dict[str, Standard] | None,
-            lot_ids: tuple[str, ...]) -> Prepared:
+def _traced(p: Prepared, unit: UnitReadings | RefusedRows,
+            register: dict[str, Standard] | None, lot_ids: tuple[str, ...]) -> Prepared:
     """The unit with the reference standards its readings used, or refused (unknown
     standard, or one past its due date when a reading was taken)."""
-    if p.refused:
+    if p.refused or isinstance(unit, RefusedRows):
         return p
     try:
-        used = unit_standards(readings.units[p.serial], register, lot_ids,
+        used = unit_standards(unit, register, lot_ids,
                               parse_time_utc(p.cal_time_utc, "cal_time_utc"))
     except InputError as exc:
         return refused(p.serial, str(exc))
@@ -245,7 +247,7 @@ class Station:
     operator: str
     spec_name: str
     spec_sha256: str
-    readings: ReadingsFile
+    readings_sha256: str
     readings_name: str
 
     @contextmanager
@@ -325,7 +327,7 @@ def _row(st: Station, p: Prepared, revision: int, hex_file: str | None) -> dict[
         "recorded_utc": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%S.%fZ"),
         "cal_time_utc": p.cal_time_utc, "spec_name": st.spec_name,
         "spec_sha256": st.spec_sha256, "readings_file": st.readings_name,
-        "readings_sha256": st.readings.sha256, "constants": p.constants,
+        "readings_sha256": st.readings_sha256, "constants": p.constants,
         "figures": p.figures, "verdict": p.verdict, "reasons": json.dumps(list(p.reasons)),
         "hex_file": hex_file, "hex_sha256": None if p.image is None else _sha256(p.image),
         "lot": st.lot, "operator": st.operator, "tool_version": __version__,
@@ -343,14 +345,17 @@ def _record(st: Station, plan: _Plan) -> Outcome:
     return Outcome(p.serial, p.verdict, p.reasons, plan.hex_file, True, plan.revision)
 
 
-def commit_group(st: Station, group: list[Prepared]) -> list[Outcome]:
+def commit_group(st: Station, group: list[Prepared], fsyncs: Executor | None = None
+                 ) -> list[Outcome]:
     """Record a group of units in one transaction holding their serials: decide each from
-    the record, write the group's images (durably, in one flush), insert the rows, commit."""
+    the record, write the group's images (durably, in one flush; ``fsyncs``: the threads
+    issuing the fsyncs), insert the rows, commit."""
     with st.folder_lock(), st.record.group():
         st.record.lock([p.serial for p in group if not p.refused])
         plans = [_decide(st, p) for p in group]
         write_group(st.folder, {plan.hex_file: plan.prepared.image for plan in plans
-                                if plan.write and plan.hex_file and plan.prepared.image})
+                                if plan.write and plan.hex_file and plan.prepared.image},
+                    fsyncs)
         outcomes = [_record(st, plan) for plan in plans]
     st.record.checkpoint()
     return outcomes
@@ -380,31 +385,51 @@ def _groups(stream: Iterable[Prepared], size: int) -> Iterator[list[Prepared]]:
 # ----------------------------------------------------------------------------- batch
 
 
-_WORKER: list[tuple[CalibrationContext, int | None]] = []  # filled in worker processes only
+@dataclass(frozen=True)
+class _Work:
+    """What every unit of the lot is prepared with (inherited by worker processes)."""
+
+    ctx: CalibrationContext
+    layout: ReadingsLayout
+    override: int | None                       # --cal-time
+    register: dict[str, Standard] | None
+    lot_ids: tuple[str, ...]
+
+    def chunk(self, units: list[UnitRows]) -> list[Prepared]:
+        """Check the rows of these units (at once), then calibrate, image and trace each."""
+        return [_traced(prepare(self.ctx, unit, self.override), unit, self.register,
+                        self.lot_ids) for unit in self.layout.check(units)]
 
 
-def _start_worker(ctx: CalibrationContext, override: int | None) -> None:
-    _WORKER.append((ctx, override))
+_WORKER: list[_Work] = []  # filled in worker processes only
 
 
-def _work(unit: UnitReadings | RefusedUnit) -> Prepared:
-    ctx, override = _WORKER[0]
-    return prepare(ctx, unit, override)
+def _start_worker(work: _Work) -> None:
+    _WORKER.append(work)
+
+
+def _work(units: list[UnitRows]) -> list[Prepared]:
+    return _WORKER[0].chunk(units)
 
 
 @contextmanager
-def _preparer(ctx: CalibrationContext, override: int | None, jobs: int, count: int
-              ) -> Iterator[Callable[[list[UnitReadings | RefusedUnit]], Iterator[Prepared]]]:
-    """A function giving prepared units in file order, in ``jobs`` worker processes if > 1.
+def _preparer(work: _Work, jobs: int, count: int
+              ) -> Iterator[Callable[[list[UnitRows]], Iterator[Prepared]]]:
+    """A function giving prepared units in file order, the rows checked, calibrated and
+    imaged ``CHUNK`` units at a time, in ``jobs`` worker processes if > 1.
 
     The workers are forked before the record is opened (an SQLite connection must not
-    cross a fork) and inherit the context instead of receiving it pickled."""
+    cross a fork) and inherit the work's context instead of receiving it pickled; each
+    chunk of units travels as its rows' text."""
+    def chunks(units: list[UnitRows]) -> Iterator[list[UnitRows]]:
+        return (units[i:i + CHUNK] for i in range(0, len(units), CHUNK))
+
     if jobs <= 1 or count < 2 * CHUNK:
-        yield lambda units: (prepare(ctx, u, override) for u in units)
+        yield lambda units: (p for c in chunks(units) for p in work.chunk(c))
         return
     with multiprocessing.get_context("fork").Pool(
-            jobs, initializer=_start_worker, initargs=(ctx, override)) as pool:
-        yield lambda units: pool.imap(_work, units, chunksize=CHUNK)
+            jobs, initializer=_start_worker, initargs=(work,)) as pool:
+        yield lambda units: (p for done in pool.imap(_work, chunks(units)) for p in done)
 
 
 def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: str | Path | None,
@@ -421,28 +446,27 @@ def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: str | Path
     design = cached_design(load_spec(spec_path))
     ctx = CalibrationContext.of(design)
     block_area(design)
-    readings = load_readings(readings_path, design.spec, per_unit=True)
+    readings = split_readings(read_readings(readings_path), design.spec, str(readings_path))
     standards = load_standards(register) if register is not None else None
     check_lot_standards(lot_standards, standards, str(register))
     make_folder(out)
-    units: list[UnitReadings | RefusedUnit] = [
-        readings.units[s] if s in readings.units else (s, readings.refused[s])
-        for s in readings.order]
-    with _preparer(ctx, cal_time, jobs, len(units)) as prepared:
+    units = readings.units
+    work = _Work(ctx, readings.layout, cal_time, standards, lot_standards)
+    with _preparer(work, jobs, len(units)) as prepared, \
+            ThreadPoolExecutor(FSYNC_THREADS) as fsyncs:
         record = open_record(db if db is not None else out / "production.sqlite")
         st = Station(record=record, folder=out, name=station or socket.gethostname(),
                      recalibrate=recalibrate, lot=lot or readings_path.stem,
                      operator=operator, spec_name=design.spec.name,
-                     spec_sha256=design.spec.sha256, readings=readings,
+                     spec_sha256=design.spec.sha256, readings_sha256=readings.sha256,
                      readings_name=readings_path.name)
         try:
             clear_temporaries(st)
-            stream: Iterable[Prepared] = (_traced(p, readings, standards, lot_standards)
-                                           for p in prepared(units))
+            stream: Iterable[Prepared] = prepared(units)
             if progress is not None:
                 stream = progress(stream, len(units))
             outcomes = tuple(o for group in _groups(stream, GROUP)
-                             for o in commit_group(st, group))
+                             for o in commit_group(st, group, fsyncs))
             pages = write_certificates(record, out, [(o.serial, o.revision) for o in outcomes
                                                      if o.status == "pass"]) \
                 if certificates else {}

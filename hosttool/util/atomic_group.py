@@ -13,7 +13,7 @@ Temporary files are named ``.<name>.tmp``.
 from __future__ import annotations
 
 import os
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import Executor, ThreadPoolExecutor
 from pathlib import Path
 
 from hosttool.errors import OutputError
@@ -31,11 +31,14 @@ def fsync_folder(folder: Path) -> None:
         os.close(fd)
 
 
-def write_group(folder: Path, files: dict[str, bytes]) -> None:
+def write_group(folder: Path, files: dict[str, bytes], fsyncs: Executor | None = None
+                ) -> None:
     """Write ``files`` (name -> bytes) into ``folder``, each atomically, all durably.
 
     The caller must have exclusive use of the folder for these names (the batch holds the
-    folder's lock): the temporary file of ``name`` is always ``.<name>.tmp``.
+    folder's lock): the temporary file of ``name`` is always ``.<name>.tmp``. ``fsyncs``:
+    threads that issue the fsyncs together (a caller writing many groups keeps one pool of
+    ``FSYNC_THREADS``; without it, one is started for this group).
     """
     if not files:
         return
@@ -51,8 +54,11 @@ def write_group(folder: Path, files: dict[str, bytes]) -> None:
             while view:
                 view = view[os.write(fd, view):]
         # fsyncs issued together let the file system commit them in one journal write
-        with ThreadPoolExecutor(max_workers=min(FSYNC_THREADS, len(fds))) as pool:
-            list(pool.map(os.fsync, fds))
+        if fsyncs is not None:
+            list(fsyncs.map(os.fsync, fds))
+        else:
+            with ThreadPoolExecutor(max_workers=min(FSYNC_THREADS, len(fds))) as pool:
+                list(pool.map(os.fsync, fds))
         for fd in fds:
             os.close(fd)
         fds = []
