@@ -74,7 +74,7 @@ from hosttool.util.utctime import format_time_utc, parse_time_utc
 #: Units handed to a worker process at a time (with jobs > 1).
 CHUNK = 64
 #: Units recorded per hold of the folder lock (their images share one flush).
-GROUP = 32
+GROUP = 128
 #: The lock file in the output folder that stations take in turn for each group.
 LOCK_NAME = ".hosttool-batch.lock"
 #: Temporary files write_group leaves when killed: ".<serial>.r<revision>.hex.tmp".

@@ -14,7 +14,6 @@ and every time in range can be written back in the same form.
 
 from __future__ import annotations
 
-import calendar
 import re
 from datetime import UTC, datetime
 
@@ -29,6 +28,8 @@ TIME_MAX = 253_402_300_799          # 9999-12-31T23:59:59Z
 TIME_RE = re.compile(r"([0-9]{4})-([0-9]{2})-([0-9]{2})T([0-9]{2}):([0-9]{2}):([0-9]{2})"
                      r"(?:Z|\+00:00)")
 EXAMPLE = "2025-03-04T08:15:00Z"
+#: The proleptic Gregorian ordinal of 1970-01-01 (day 1 is 0001-01-01).
+_EPOCH_DAY = 719_163
 FORMS = "YYYY-MM-DDThh:mm:ssZ or YYYY-MM-DDThh:mm:ss+00:00"
 
 
@@ -38,12 +39,12 @@ def parse_time_utc(text: str, where: str) -> int:
     if match is None:
         raise InputError(f"{where}: {shown(text)} is not a UTC time of the form {FORMS} "
                          f"(e.g. {EXAMPLE})")
-    year, month, day, hour, minute, second = (int(g) for g in match.groups())
+    year, month, day, hour, minute, second = map(int, match.groups())
     try:
         stamp = datetime(year, month, day, hour, minute, second, tzinfo=UTC)
     except ValueError as exc:
         raise InputError(f"{where}: {shown(text)} is not a valid time: {exc}") from None
-    seconds = calendar.timegm(stamp.utctimetuple())
+    seconds = (stamp.toordinal() - _EPOCH_DAY) * 86_400 + hour * 3_600 + minute * 60 + second
     check_time_range(seconds, where)
     return seconds
 

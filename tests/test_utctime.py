@@ -1,0 +1,48 @@
+"""UTC text <-> seconds since 1970, against the standard library's own conversions."""
+
+from __future__ import annotations
+
+import calendar
+import random
+import time
+from datetime import datetime
+
+import pytest
+
+from hosttool.errors import InputError
+from hosttool.util.utctime import TIME_MAX, TIME_MIN, format_time_utc, parse_time_utc
+
+
+def test_seconds_agree_with_calendar_timegm_over_the_whole_range() -> None:
+    # Source: Python's calendar.timegm (POSIX time of a UTC struct_time) and time.gmtime.
+    rng = random.Random(20261202)
+    stamps = [TIME_MIN, TIME_MAX, 951_782_400, 4_107_542_399] + \
+        [rng.randrange(TIME_MIN, TIME_MAX + 1) for _ in range(20_000)]
+    for seconds in stamps:
+        text = time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime(seconds))
+        parsed = datetime.strptime(text, "%Y-%m-%dT%H:%M:%SZ").timetuple()
+        assert parse_time_utc(text, "t") == calendar.timegm(parsed) == seconds
+        assert parse_time_utc(text.replace("Z", "+00:00"), "t") == seconds
+        assert format_time_utc(seconds) == text
+
+
+@pytest.mark.parametrize(("text", "reason"), [
+    ("2024-02-30T00:00:00Z", "day is out of range for month"),
+    ("2023-02-29T12:00:00Z", "day is out of range for month"),
+    ("2025-03-04T24:00:00Z", "hour must be in 0..23"),
+    ("2025-03-04T08:60:00Z", "minute must be in 0..59"),
+    ("2025-03-04T08:15:60Z", "second must be in 0..59"),
+    ("0000-01-01T00:00:00Z", "year 0 is out of range"),
+])
+def test_a_date_that_does_not_exist_is_refused_with_the_reason(text: str, reason: str) -> None:
+    # 2024 is a leap year and 2023 is not (Gregorian rule, from memory)
+    with pytest.raises(InputError, match=reason):
+        parse_time_utc(text, "t")
+
+
+def test_leap_day_and_century_rule() -> None:
+    # Source: calendar.timegm; 2000 is a leap year, 2100 is not (Gregorian rule, from memory)
+    assert parse_time_utc("2000-02-29T00:00:00Z", "t") == calendar.timegm(
+        (2000, 2, 29, 0, 0, 0, 0, 0, 0))
+    with pytest.raises(InputError, match="day is out of range"):
+        parse_time_utc("2100-02-29T00:00:00Z", "t")
