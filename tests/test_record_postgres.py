@@ -20,7 +20,7 @@ from pathlib import Path
 import psycopg
 import pytest
 from intelhex import IntelHex
-from test_production import ADDRESS, AREA, SAME, SPEC, _batch, _lot, _rows, _truths
+from test_production import ADDRESS, AREA, SAME, SPEC, _batch, _lot, _made, _rows, _truths
 
 from hosttool.formats.calblock import decode
 
@@ -143,10 +143,10 @@ def test_kill_minus_9_mid_lot_then_rerun_completes(tmp_path: Path, postgres_uri:
     rng = random.Random(20261202)
     kills = 0
     for _ in range(4):
-        existing = sum(1 for _ in out.glob("*.hex"))
+        existing = _made(out)
         target = existing + rng.randrange(1, max(2, (319 - existing) // 2))
         proc = _start(readings, out, "--db", postgres_uri, "--station", "K")
-        while proc.poll() is None and sum(1 for _ in out.glob("*.hex")) < target:
+        while proc.poll() is None and _made(out) < target:
             time.sleep(0.001)
         time.sleep(rng.uniform(0.0, 0.01))
         if proc.poll() is None:
@@ -160,7 +160,8 @@ def test_kill_minus_9_mid_lot_then_rerun_completes(tmp_path: Path, postgres_uri:
     assert final.returncode == 1, final.stderr
     rows = _consistent(postgres_uri, {"K": out})
     assert len(rows) == 320 and _same(rows) == _clean(tmp_path, readings)
-    assert [p.name for p in out.iterdir() if p.name.endswith(".tmp")] == []
+    assert [p.name for p in out.iterdir()
+            if p.name.endswith(".tmp") or p.name.startswith(".hosttool-staging")] == []
 
 
 def test_idempotent_rerun_recalibration_and_rework(tmp_path: Path, postgres_uri: str) -> None:

@@ -291,34 +291,6 @@ def test_three_way_exhaustive_proof_with_the_c_firmware(name: str) -> None:
     assert set(data["timings"]) == {"import", "design", "static", "dynamic", "report"}
 
 
-def test_group_write_flushes_its_own_files_not_the_machine(tmp_path: Path,
-                                                           monkeypatch: pytest.MonkeyPatch
-                                                           ) -> None:
-    # Source: POSIX fsync(2) makes one file's data durable; sync(2) flushes every pending
-    # write of the system, which a batch must not wait for. Each image and the folder are
-    # fsynced; os.sync is never called.
-    import os
-
-    from hosttool.util import atomic_group
-
-    synced: list[int] = []
-    real_fsync = os.fsync
-
-    def counting_fsync(fd: int) -> None:
-        synced.append(fd)
-        real_fsync(fd)
-
-    def no_sync() -> None:
-        raise AssertionError("os.sync() waits for the whole machine")
-
-    monkeypatch.setattr(atomic_group.os, "fsync", counting_fsync)
-    monkeypatch.setattr(atomic_group.os, "sync", no_sync)
-    files = {f"U{i}.r1.hex": f":00000001FF\n{i}\n".encode() for i in range(5)}
-    atomic_group.write_group(tmp_path, files)
-    assert len(synced) == len(files) + 1          # every image, then the folder
-    assert {p.name: p.read_bytes() for p in tmp_path.iterdir()} == files
-
-
 @pytest.mark.parametrize("name", list(DESIGNS))
 def test_chain_compiled_for_its_shape_equals_the_generic_loop(
         name: str, tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:

@@ -39,7 +39,6 @@ import os
 import re
 import socket
 from collections.abc import Callable, Iterable, Iterator
-from concurrent.futures import Executor, ThreadPoolExecutor
 from contextlib import contextmanager
 from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
@@ -67,7 +66,7 @@ from hosttool.production.record_open import open_record
 from hosttool.production.traceability import check_lot_standards, unit_standards
 from hosttool.spec.schema import load_spec
 from hosttool.util.atomic import make_folder
-from hosttool.util.atomic_group import FSYNC_THREADS, write_group
+from hosttool.util.staging import Staging, clear_stale, fsync_folder
 from hosttool.util.text import control_character, shown
 from hosttool.util.utctime import format_time_utc, parse_time_utc
 
@@ -77,7 +76,7 @@ CHUNK = 64
 GROUP = 128
 #: The lock file in the output folder that stations take in turn for each group.
 LOCK_NAME = ".hosttool-batch.lock"
-#: Temporary files write_group leaves when killed: ".<serial>.r<revision>.hex.tmp".
+#: Temporary files version 0.2.0 left when killed: ".<serial>.r<revision>.hex.tmp".
 _TEMPORARY = re.compile(r"^\.[A-Za-z0-9][A-Za-z0-9._-]*\.r[0-9]+\.hex\.tmp$")
 
 
@@ -97,6 +96,7 @@ class Prepared:
     points: str = "[]"            # JSON: each reading's firmware output, error and limit
     readings: str = "[]"          # JSON: the unit's readings as read
     standards: str = "[]"         # JSON: the reference standards used (traceability.py)
+    staged: str | None = None     # the image's name in the batch's staging folder, on disk
 
 
 @dataclass(frozen=True)
@@ -249,6 +249,7 @@ class Station:
     spec_sha256: str
     readings_sha256: str
     readings_name: str
+    staging: Staging
 
     @contextmanager
     def folder_lock(self) -> Iterator[None]:
@@ -345,25 +346,34 @@ def _record(st: Station, plan: _Plan) -> Outcome:
     return Outcome(p.serial, p.verdict, p.reasons, plan.hex_file, True, plan.revision)
 
 
-def commit_group(st: Station, group: list[Prepared], fsyncs: Executor | None = None
-                 ) -> list[Outcome]:
+def commit_group(st: Station, group: list[Prepared]) -> list[Outcome]:
     """Record a group of units in one transaction holding their serials: decide each from
-    the record, write the group's images (durably, in one flush; ``fsyncs``: the threads
-    issuing the fsyncs), insert the rows, commit."""
+    the record, publish the group's staged images (renames, one folder fsync), insert the
+    rows, commit."""
     with st.folder_lock(), st.record.group():
         st.record.lock([p.serial for p in group if not p.refused])
         plans = [_decide(st, p) for p in group]
-        write_group(st.folder, {plan.hex_file: plan.prepared.image for plan in plans
-                                if plan.write and plan.hex_file and plan.prepared.image},
-                    fsyncs)
+        published = False
+        for plan in plans:
+            if plan.prepared.staged is None:
+                continue
+            if plan.write and plan.hex_file:
+                st.staging.publish(plan.prepared.staged, st.folder / plan.hex_file)
+                published = True
+            else:
+                st.staging.discard(plan.prepared.staged)
+        if published:
+            fsync_folder(st.folder)
         outcomes = [_record(st, plan) for plan in plans]
     st.record.checkpoint()
     return outcomes
 
 
 def clear_temporaries(st: Station) -> int:
-    """Remove the temporary files a killed run left; returns how many. Done under the
-    folder lock: every image write happens under it, so none is in progress."""
+    """Remove the temporary files a run of version 0.2.0 killed while writing its images
+    left in the folder itself; returns how many. Done under the folder lock, which such
+    a run held for every image write, so none is in progress. (This version stages its
+    images in a folder of its own: util/staging.py.)"""
     with st.folder_lock():
         stale = [e.path for e in os.scandir(st.folder) if _TEMPORARY.fullmatch(e.name)]
         for path in stale:
@@ -394,11 +404,23 @@ class _Work:
     override: int | None                       # --cal-time
     register: dict[str, Standard] | None
     lot_ids: tuple[str, ...]
+    staging: Staging
 
     def chunk(self, units: list[UnitRows]) -> list[Prepared]:
-        """Check the rows of these units (at once), then calibrate, image and trace each."""
-        return [_traced(prepare(self.ctx, unit, self.override), unit, self.register,
-                        self.lot_ids) for unit in self.layout.check(units)]
+        """Check the rows of these units (at once), then calibrate, image and trace each,
+        and stage each image (its fsyncs in flight while the next units are computed)."""
+        done = []
+        on_disk = []
+        for unit in self.layout.check(units):
+            p = _traced(prepare(self.ctx, unit, self.override), unit, self.register,
+                        self.lot_ids)
+            if p.image is not None:
+                on_disk.append(self.staging.stage(f"{p.serial}.hex", p.image))
+                p = replace(p, staged=f"{p.serial}.hex")
+            done.append(p)
+        for future in on_disk:
+            future.result()
+        return done
 
 
 _WORKER: list[_Work] = []  # filled in worker processes only
@@ -450,26 +472,30 @@ def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: str | Path
     standards = load_standards(register) if register is not None else None
     check_lot_standards(lot_standards, standards, str(register))
     make_folder(out)
-    units = readings.units
-    work = _Work(ctx, readings.layout, cal_time, standards, lot_standards)
-    with _preparer(work, jobs, len(units)) as prepared, \
-            ThreadPoolExecutor(FSYNC_THREADS) as fsyncs:
-        record = open_record(db if db is not None else out / "production.sqlite")
-        st = Station(record=record, folder=out, name=station or socket.gethostname(),
-                     recalibrate=recalibrate, lot=lot or readings_path.stem,
-                     operator=operator, spec_name=design.spec.name,
-                     spec_sha256=design.spec.sha256, readings_sha256=readings.sha256,
-                     readings_name=readings_path.name)
-        try:
-            clear_temporaries(st)
-            stream: Iterable[Prepared] = prepared(units)
-            if progress is not None:
-                stream = progress(stream, len(units))
-            outcomes = tuple(o for group in _groups(stream, GROUP)
-                             for o in commit_group(st, group, fsyncs))
-            pages = write_certificates(record, out, [(o.serial, o.revision) for o in outcomes
-                                                     if o.status == "pass"]) \
-                if certificates else {}
-        finally:
-            record.close()
+    clear_stale(out)
+    staging = Staging(out)
+    try:
+        work = _Work(ctx, readings.layout, cal_time, standards, lot_standards, staging)
+        with _preparer(work, jobs, len(readings.units)) as prepared:
+            record = open_record(db if db is not None else out / "production.sqlite")
+            st = Station(record=record, folder=out, name=station or socket.gethostname(),
+                         recalibrate=recalibrate, lot=lot or readings_path.stem,
+                         operator=operator, spec_name=design.spec.name,
+                         spec_sha256=design.spec.sha256, readings_sha256=readings.sha256,
+                         readings_name=readings_path.name, staging=staging)
+            try:
+                clear_temporaries(st)
+                stream: Iterable[Prepared] = prepared(readings.units)
+                if progress is not None:
+                    stream = progress(stream, len(readings.units))
+                outcomes = tuple(o for group in _groups(stream, GROUP)
+                                 for o in commit_group(st, group))
+                pages = write_certificates(record, out, [(o.serial, o.revision)
+                                                         for o in outcomes
+                                                         if o.status == "pass"]) \
+                    if certificates else {}
+            finally:
+                record.close()
+    finally:
+        staging.close()
     return BatchSummary(design.spec.name, outcomes, st.lot, record.where, pages)

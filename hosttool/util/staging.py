@@ -1,0 +1,135 @@
+"""Files made durable where they are made, published in groups where they are recorded.
+
+A production batch makes each unit's image in a worker process and records it in the main
+one. The worker writes the image into the batch's own *staging folder* inside the output
+folder and fsyncs it there, many fsyncs in flight at once on a pool of threads, while it
+goes on with the next units: the data is on disk before the recording process sees it.
+The recording process then renames the images of a group into the output folder and fsyncs
+the folder once (the names are on disk), before the group's rows commit. Only these files
+are flushed: ``os.sync()`` would wait for every pending write of the whole machine.
+
+A reader or a crash sees an image in the output folder either absent or complete. The
+staging folder (``.hosttool-staging-<pid>-<random>``) is held by a lock (flock on its
+``.owner`` file) for the batch's life and removed at its end; one left by a killed batch
+(its lock free) is removed by the next batch that starts in that folder.
+"""
+
+from __future__ import annotations
+
+import fcntl
+import os
+import shutil
+import tempfile
+import time
+from concurrent.futures import Future, ThreadPoolExecutor
+from pathlib import Path
+
+from hosttool.errors import OutputError
+
+#: Most fsyncs in flight at once in one process (issued together, the file system can
+#: commit them in one journal write).
+FSYNC_THREADS = 32
+STAGING_PREFIX = ".hosttool-staging-"
+OWNER = ".owner"
+#: A staging folder without its lock file is another batch's in the making unless older.
+ORPHAN_AGE_S = 60.0
+
+_POOL: dict[int, ThreadPoolExecutor] = {}       # pid -> this process's fsync threads
+
+
+def fsync_pool() -> ThreadPoolExecutor:
+    """This process's fsync threads (started on first use; a forked worker starts its own)."""
+    pool = _POOL.get(os.getpid())
+    if pool is None:
+        pool = _POOL[os.getpid()] = ThreadPoolExecutor(FSYNC_THREADS)
+    return pool
+
+
+def fsync_folder(folder: Path) -> None:
+    """fsync a folder: the names created or renamed in it so far survive a power cut."""
+    try:
+        fd = os.open(folder, os.O_RDONLY)
+        try:
+            os.fsync(fd)
+        finally:
+            os.close(fd)
+    except OSError as exc:
+        raise OutputError(f"{folder}: cannot flush the folder: {exc.strerror}") from None
+
+
+def _write_synced(path: Path, data: bytes) -> None:
+    try:
+        fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o666)
+        try:
+            view = memoryview(data)
+            while view:
+                view = view[os.write(fd, view):]
+            os.fsync(fd)
+        finally:
+            os.close(fd)
+    except OSError as exc:
+        raise OutputError(f"{path}: cannot write: {exc.strerror}") from None
+
+
+class Staging:
+    """A batch's staging folder inside ``folder``, locked for the batch's life."""
+
+    def __init__(self, folder: Path):
+        try:
+            self.path = Path(tempfile.mkdtemp(prefix=f"{STAGING_PREFIX}{os.getpid()}-",
+                                              dir=folder))
+            self._owner = os.open(self.path / OWNER, os.O_RDWR | os.O_CREAT, 0o666)
+        except OSError as exc:
+            raise OutputError(f"{folder}: cannot make a staging folder: {exc.strerror}") \
+                from None
+        fcntl.flock(self._owner, fcntl.LOCK_EX)
+
+    def stage(self, name: str, data: bytes) -> Future[None]:
+        """Write ``data`` as ``name`` in the staging folder; the future is done when the
+        file is on disk (fsynced)."""
+        return fsync_pool().submit(_write_synced, self.path / name, data)
+
+    def publish(self, name: str, final: Path) -> None:
+        """Rename the staged file ``name`` to ``final`` (in the output folder; durable once
+        that folder is fsynced)."""
+        try:
+            os.replace(self.path / name, final)
+        except OSError as exc:
+            raise OutputError(f"{final}: cannot write: {exc.strerror}") from None
+
+    def discard(self, name: str) -> None:
+        """Remove a staged file that is not published."""
+        (self.path / name).unlink(missing_ok=True)
+
+    def close(self) -> None:
+        """Remove the staging folder and release it."""
+        shutil.rmtree(self.path, ignore_errors=True)
+        os.close(self._owner)
+
+
+def clear_stale(folder: Path) -> int:
+    """Remove the staging folders of batches that died (their lock is free); returns how
+    many."""
+    removed = 0
+    for entry in os.scandir(folder):
+        if not (entry.name.startswith(STAGING_PREFIX) and entry.is_dir(follow_symlinks=False)):
+            continue
+        try:
+            fd = os.open(Path(entry.path) / OWNER, os.O_RDWR)
+        except FileNotFoundError:       # no lock yet: being made, or killed right then
+            if time.time() - entry.stat(follow_symlinks=False).st_mtime < ORPHAN_AGE_S:
+                continue
+            fd = -1
+        except OSError:
+            continue
+        try:
+            if fd >= 0:
+                fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:         # a live batch holds it
+            os.close(fd)
+            continue
+        shutil.rmtree(entry.path, ignore_errors=True)
+        removed += 1
+        if fd >= 0:
+            os.close(fd)
+    return removed

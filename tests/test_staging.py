@@ -1,0 +1,101 @@
+"""Images made durable where they are made (util/staging.py), published by the recorder.
+
+Source: POSIX fsync(2) makes one file's data durable and fsync of a folder its names;
+sync(2) flushes every pending write of the system, which a batch must not wait for;
+flock(2) locks are released when their holder dies.
+"""
+
+from __future__ import annotations
+
+import fcntl
+import os
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from hosttool.design.resolve import make_design
+from hosttool.production import batch
+from hosttool.production.synthetic_lot import lot_csv, random_truth
+from hosttool.spec.schema import parse_spec
+from hosttool.util import staging
+
+SPEC = Path(__file__).resolve().parent.parent / "examples" / "hive_scale.toml"
+
+
+def _lot(path: Path, n: int) -> Path:
+    design = make_design(parse_spec(SPEC.read_text(), str(SPEC)))
+    rng = np.random.default_rng(5)
+    truths = [random_truth(f"ST{i:04d}", rng) for i in range(n)]
+    path.write_text(lot_csv(design, truths, seed=5, start_utc=1_741_075_200))
+    return path
+
+
+def test_every_image_and_the_folder_are_fsynced_never_the_machine(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    synced: list[str] = []
+    real_fsync = os.fsync
+
+    def counting_fsync(fd: int) -> None:
+        synced.append(os.readlink(f"/proc/self/fd/{fd}"))
+        real_fsync(fd)
+
+    def no_sync() -> None:
+        raise AssertionError("os.sync() waits for the whole machine")
+
+    monkeypatch.setattr(staging.os, "fsync", counting_fsync)
+    monkeypatch.setattr(staging.os, "sync", no_sync)
+    monkeypatch.setattr(batch, "GROUP", 16)
+    out = tmp_path / "out"
+    summary = batch.run_batch(SPEC, _lot(tmp_path / "lot.csv", 40), out=out, db=None,
+                              station="t", recalibrate=False, cal_time=None, jobs=1)
+    images = sorted(p.name for p in out.glob("*.hex"))
+    assert len(images) == sum(o.status == "pass" for o in summary.outcomes) > 30
+    staged = [Path(s).name for s in synced if staging.STAGING_PREFIX in s]
+    assert sorted(f"{n.split('.r')[0]}.hex" for n in images) == sorted(staged)
+    # the folder once per group that published images (40 units in groups of 16: 3)
+    assert synced.count(str(out.resolve())) == 3
+    # nothing of the staging is left
+    assert [p.name for p in out.iterdir() if p.name.startswith(".hosttool-staging")] == []
+
+
+def _hold(folder: Path) -> subprocess.Popen[bytes]:
+    """A live process holding a staging folder of its own in ``folder``."""
+    code = ("import sys, time; from pathlib import Path; from hosttool.util.staging import "
+            "Staging; s = Staging(Path(sys.argv[1])); print(s.path, flush=True); "
+            "time.sleep(60)")
+    return subprocess.Popen([sys.executable, "-c", code, str(folder)], stdout=subprocess.PIPE)
+
+
+def test_stale_staging_is_cleared_and_a_live_one_kept(tmp_path: Path) -> None:
+    live = _hold(tmp_path)
+    assert live.stdout is not None
+    live_path = Path(live.stdout.readline().decode().strip())
+    dead = _hold(tmp_path)
+    assert dead.stdout is not None
+    dead_path = Path(dead.stdout.readline().decode().strip())
+    (dead_path / "HS0001.hex").write_bytes(b":00000001FF\n")
+    dead.kill()
+    dead.wait()
+    # a folder just made, its lock file not yet created, is another batch's: kept
+    young = tmp_path / f"{staging.STAGING_PREFIX}1-young"
+    young.mkdir()
+    # the same, an hour old: a batch killed right after making it
+    old = tmp_path / f"{staging.STAGING_PREFIX}2-old"
+    old.mkdir()
+    hour_ago = time.time() - 3600
+    os.utime(old, (hour_ago, hour_ago))
+    try:
+        assert staging.clear_stale(tmp_path) == 2
+        assert live_path.is_dir() and young.is_dir()
+        assert not dead_path.exists() and not old.exists()
+        fd = os.open(live_path / staging.OWNER, os.O_RDWR)
+        with pytest.raises(BlockingIOError):
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        os.close(fd)
+    finally:
+        live.kill()
+        live.wait()
