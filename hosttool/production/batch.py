@@ -6,8 +6,8 @@ chunks of ``CHUNK`` (in worker processes with ``jobs`` > 1): check its rows, cal
 the reference standards used. The main process then records units in groups
 of ``GROUP``, each group in one transaction of the record (SQLite or PostgreSQL, record.py)
 holding the group's serials and the output folder's lock: each unit is decided from the
-record, the group's images are written (temporary files, one flush, renames, folder fsync),
-then the group's rows are inserted and committed together.
+record, the group's staged images are published (renames, one folder fsync), then the
+group's rows are inserted and committed together.
 
 - Idempotent: a serial already recorded with the same spec, constants and calibration time
   is left alone: no new row, its image is not rewritten (only put back if it went missing).
@@ -18,10 +18,10 @@ then the group's rows are inserted and committed together.
 - Killed at any moment: an image is complete on disk before the rows naming it commit, so
   no partial image and no row naming a missing one can exist; a kill before the commit
   rolls the group back and leaves unrecorded images, which the re-run adopts (same bytes)
-  or replaces. A power cut can at most roll back the group in progress (SQLite between
-  checkpoints), whose images are on disk: the re-run adopts them too.
-  Temporary files of a killed run are removed when the next batch starts: every image write
-  happens under the folder lock, so none can be in progress then.
+  or replaces. A power cut can at most roll back the group in progress (each commit is
+  durable when it returns), whose published images are on disk: the re-run adopts them.
+  Images are made durable in the batch's staging folder before they are published
+  (util/staging.py); a killed batch's staging folder is removed by the next batch.
 - Stations: each group holds its serials in the record (record.py ``lock``), so stations
   recording into one record, each into its own folder (PostgreSQL) or one shared folder,
   neither lose nor duplicate a unit; the folder lock only keeps the image writes of
@@ -61,7 +61,7 @@ from hosttool.formats.readings import (
 from hosttool.formats.standards import Standard, load_standards
 from hosttool.production.certificate import write_certificates
 from hosttool.production.fit import CalibrationContext, calibrate_unit, point_limits
-from hosttool.production.record import Record
+from hosttool.production.record import Record, Row
 from hosttool.production.record_open import open_record
 from hosttool.production.traceability import check_lot_standards, unit_standards
 from hosttool.spec.schema import load_spec
@@ -287,12 +287,12 @@ def _existing(path: Path) -> bytes | None:
         raise OutputError(f"{path}: cannot read: {exc.strerror}") from None
 
 
-def _decide(st: Station, p: Prepared) -> _Plan:
-    """Inside the group's transaction, with the serial held (record ``lock``)."""
+def _decide(st: Station, p: Prepared, row: Row | None, last_revision: int) -> _Plan:
+    """Inside the group's transaction, with the serial held (record ``lock``): ``row`` is
+    its current row, ``last_revision`` its highest revision (0: none)."""
     if p.refused:
         return _Plan(p, Outcome(p.serial, "refused", (p.refused,), None, False), None, 0,
                      None, False)
-    row = st.record.current(p.serial)
     if row is not None:
         if (row.spec_sha256, row.constants, row.cal_time_utc) == (
                 st.spec_sha256, p.constants, p.cal_time_utc):
@@ -313,7 +313,7 @@ def _decide(st: Station, p: Prepared) -> _Plan:
                 f"station {row.station}, calibrated {row.cal_time_utc}) with other "
                 "constants; --recalibrate records a new revision and keeps the history",),
                 row.hex_file, False, row.revision), row.id, row.revision, None, False)
-    revision = st.record.next_revision(p.serial)
+    revision = last_revision + 1
     if p.image is None:
         return _Plan(p, None, None if row is None else row.id, revision, None, False)
     hex_file = f"{p.serial}.r{revision}.hex"
@@ -337,12 +337,11 @@ def _row(st: Station, p: Prepared, revision: int, hex_file: str | None) -> dict[
     }
 
 
-def _record(st: Station, plan: _Plan) -> Outcome:
-    """Insert the unit's row (inside the group's transaction) unless already settled."""
+def _outcome(plan: _Plan) -> Outcome:
+    """What happened to the unit: settled before, or recorded now."""
     if plan.outcome is not None:
         return plan.outcome
     p = plan.prepared
-    st.record.add(_row(st, p, plan.revision, plan.hex_file), plan.current_id)
     return Outcome(p.serial, p.verdict, p.reasons, plan.hex_file, True, plan.revision)
 
 
@@ -351,8 +350,12 @@ def commit_group(st: Station, group: list[Prepared]) -> list[Outcome]:
     the record, publish the group's staged images (renames, one folder fsync), insert the
     rows, commit."""
     with st.folder_lock(), st.record.group():
-        st.record.lock([p.serial for p in group if not p.refused])
-        plans = [_decide(st, p) for p in group]
+        serials = [p.serial for p in group if not p.refused]
+        st.record.lock(serials)
+        rows = st.record.currents(serials)
+        revisions = st.record.revisions(serials)
+        plans = [_decide(st, p, rows.get(p.serial), revisions.get(p.serial, 0))
+                 for p in group]
         published = False
         for plan in plans:
             if plan.prepared.staged is None:
@@ -364,9 +367,9 @@ def commit_group(st: Station, group: list[Prepared]) -> list[Outcome]:
                 st.staging.discard(plan.prepared.staged)
         if published:
             fsync_folder(st.folder)
-        outcomes = [_record(st, plan) for plan in plans]
-    st.record.checkpoint()
-    return outcomes
+        st.record.add([(_row(st, plan.prepared, plan.revision, plan.hex_file), plan.current_id)
+                       for plan in plans if plan.outcome is None])
+    return [_outcome(plan) for plan in plans]
 
 
 def clear_temporaries(st: Station) -> int:

@@ -111,8 +111,26 @@ class Row:
     hex_sha256: str | None
 
 
-ROW_QUERY = ("SELECT id, serial, revision, station, cal_time_utc, spec_sha256, constants, "
-             "verdict, hex_file, hex_sha256 FROM calibrations WHERE serial = ? AND current = 1")
+#: The current rows of some serials (``{serials}``: one ``?`` per serial).
+ROWS_QUERY = ("SELECT id, serial, revision, station, cal_time_utc, spec_sha256, constants, "
+              "verdict, hex_file, hex_sha256 FROM calibrations WHERE current = 1 AND serial "
+              "IN ({serials})")
+#: The highest revision of some serials (``{serials}``: one ``?`` per serial).
+REVISIONS_QUERY = ("SELECT serial, MAX(revision) FROM calibrations WHERE serial IN ({serials}) "
+                   "GROUP BY serial")
+#: Serials per lookup (well under SQLite's smallest limit of 999 parameters).
+LOOKUP_SIZE = 500
+INSERT = (f"INSERT INTO calibrations ({', '.join(COLUMNS)}) VALUES "
+          f"({', '.join('?' * len(COLUMNS))})")
+
+
+def lookups(serials: Sequence[str]) -> Iterator[tuple[str, list[str]]]:
+    """``{serials}`` filled for each slice of at most LOOKUP_SIZE distinct serials, with
+    the slice."""
+    unique = sorted(set(serials))
+    for start in range(0, len(unique), LOOKUP_SIZE):
+        part = unique[start:start + LOOKUP_SIZE]
+        yield ", ".join("?" * len(part)), part
 
 
 @dataclass(frozen=True)
@@ -167,17 +185,15 @@ class Record(Protocol):
     def lock(self, serials: Sequence[str]) -> None:
         """Inside ``group()``: hold these serials against other stations until the commit."""
 
-    def checkpoint(self) -> None:
-        """Make every commit so far durable."""
+    def currents(self, serials: Sequence[str]) -> dict[str, Row]:
+        """The current calibration of each of these serials that has one."""
 
-    def current(self, serial: str) -> Row | None:
-        """The serial's current calibration, if any."""
+    def revisions(self, serials: Sequence[str]) -> dict[str, int]:
+        """The highest revision so far of each of these serials that has one."""
 
-    def next_revision(self, serial: str) -> int:
-        """1 + the serial's highest revision so far."""
-
-    def add(self, values: dict[str, Any], supersedes: int | None) -> None:
-        """Insert a current row, clearing ``current`` on the row it supersedes."""
+    def add(self, rows: Sequence[tuple[dict[str, Any], int | None]]) -> None:
+        """Insert current rows (column -> value), each clearing ``current`` on the row (id)
+        it supersedes, if any."""
 
     def select(self, which: Filter) -> list[dict[str, Any]]:
         """Rows as dicts (every column, ``id`` first), by serial and revision."""

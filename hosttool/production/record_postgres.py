@@ -9,7 +9,7 @@ serial, in sorted order so two stations cannot deadlock); a station deciding a s
 it until its commit, so another station recording the same serial waits and then sees the
 row. A killed station's connection drops and the server rolls its open transaction back:
 no half-recorded group. Commits are durable when they return (the server's
-``synchronous_commit``), so ``checkpoint`` has nothing to do.
+``synchronous_commit``).
 """
 
 from __future__ import annotations
@@ -23,8 +23,10 @@ import psycopg
 from hosttool.errors import OutputError
 from hosttool.production.record import (
     COLUMNS,
+    INSERT,
     MIGRATIONS,
-    ROW_QUERY,
+    REVISIONS_QUERY,
+    ROWS_QUERY,
     SCHEMA_VERSION,
     SELECT_ALL,
     TABLE,
@@ -32,6 +34,7 @@ from hosttool.production.record import (
     Row,
     check_columns,
     iter_statements,
+    lookups,
     shown,
     stored_version,
 )
@@ -105,27 +108,25 @@ class PostgresRecord:
         for serial in sorted(set(serials)):
             self.db.execute("SELECT pg_advisory_xact_lock(hashtextextended(%s, 0))", (serial,))
 
-    def checkpoint(self) -> None:
-        """Nothing to do: a commit is durable when it returns."""
+    def currents(self, serials: Sequence[str]) -> dict[str, Row]:
+        """The current calibration of each of these serials that has one."""
+        return {row.serial: row for marks, part in lookups(serials)
+                for row in (Row(*found) for found in self.db.execute(
+                    _sql(ROWS_QUERY.format(serials=marks)), part))}
 
-    def current(self, serial: str) -> Row | None:
-        """The serial's current calibration, if any."""
-        found = self.db.execute(_sql(ROW_QUERY), (serial,)).fetchone()
-        return None if found is None else Row(*found)
+    def revisions(self, serials: Sequence[str]) -> dict[str, int]:
+        """The highest revision so far of each of these serials that has one."""
+        return {serial: int(top) for marks, part in lookups(serials)
+                for serial, top in self.db.execute(
+                    _sql(REVISIONS_QUERY.format(serials=marks)), part)}
 
-    def next_revision(self, serial: str) -> int:
-        """1 + the serial's highest revision so far."""
-        found = self.db.execute("SELECT MAX(revision) FROM calibrations WHERE serial = %s",
-                                (serial,)).fetchone()
-        return 1 if found is None or found[0] is None else int(found[0]) + 1
-
-    def add(self, values: dict[str, Any], supersedes: int | None) -> None:
-        """Insert a current row (clearing ``current`` on the row it supersedes)."""
-        if supersedes is not None:
-            self.db.execute("UPDATE calibrations SET current = 0 WHERE id = %s", (supersedes,))
-        self.db.execute(f"INSERT INTO calibrations ({', '.join(COLUMNS)}) VALUES "
-                        f"({', '.join(['%s'] * len(COLUMNS))})",
-                        tuple(values[c] for c in COLUMNS))
+    def add(self, rows: Sequence[tuple[dict[str, Any], int | None]]) -> None:
+        """Insert current rows, each clearing ``current`` on the row it supersedes."""
+        with self.db.cursor() as cursor:
+            cursor.executemany("UPDATE calibrations SET current = 0 WHERE id = %s",
+                               [(old,) for _, old in rows if old is not None])
+            cursor.executemany(_sql(INSERT), [tuple(values[c] for c in COLUMNS)
+                                              for values, _ in rows])
 
     def select(self, which: Filter) -> list[dict[str, Any]]:
         """Rows as dicts, by serial and revision."""

@@ -3,11 +3,10 @@
 WAL journal, a busy timeout so stations writing at once wait for each other instead of
 failing, and one transaction per group of units (``BEGIN IMMEDIATE``: the write lock is
 taken before the group's units are read, so two stations cannot both record the same
-serial; ``lock`` has nothing more to do). Each commit is atomic and survives the process
-being killed; against a power cut the record is made durable by ``checkpoint()``
-(synchronous NORMAL: commits between two checkpoints may be rolled back by a power cut,
-never half-applied; the batch checkpoints after every group, whose images are already on
-disk, so a re-run restores such rows). Schema and migrations: record.py.
+serial; ``lock`` has nothing more to do). Each commit is atomic, survives the process
+being killed, and is durable when it returns (synchronous FULL: the write-ahead log is
+fsynced at each commit, one fsync per group of units; SQLite checkpoints the log into the
+file by itself). Schema and migrations: record.py.
 """
 
 from __future__ import annotations
@@ -21,8 +20,10 @@ from typing import Any
 from hosttool.errors import OutputError
 from hosttool.production.record import (
     COLUMNS,
+    INSERT,
     MIGRATIONS,
-    ROW_QUERY,
+    REVISIONS_QUERY,
+    ROWS_QUERY,
     SCHEMA_VERSION,
     SELECT_ALL,
     TABLE,
@@ -30,6 +31,7 @@ from hosttool.production.record import (
     Row,
     check_columns,
     iter_statements,
+    lookups,
     stored_version,
 )
 
@@ -47,7 +49,7 @@ class SqliteRecord:
             mode = self.db.execute("PRAGMA journal_mode=WAL").fetchone()[0]
             if mode != "wal":
                 raise OutputError(f"{path}: cannot use a write-ahead log here ({mode})")
-            self.db.execute("PRAGMA synchronous=NORMAL")
+            self.db.execute("PRAGMA synchronous=FULL")
             with self.group():
                 self._schema()
         except sqlite3.Error as exc:
@@ -94,36 +96,29 @@ class SqliteRecord:
     def lock(self, serials: Sequence[str]) -> None:
         """Nothing to add: BEGIN IMMEDIATE holds the whole file's write lock."""
 
-    def checkpoint(self) -> None:
-        """Make every commit so far durable (WAL and database fsynced)."""
+    def currents(self, serials: Sequence[str]) -> dict[str, Row]:
+        """The current calibration of each of these serials that has one."""
+        query = ROWS_QUERY.format
+        return {row.serial: row for marks, part in lookups(serials)
+                for row in (Row(*found)
+                            for found in self.db.execute(query(serials=marks), part))}
+
+    def revisions(self, serials: Sequence[str]) -> dict[str, int]:
+        """The highest revision so far of each of these serials that has one."""
+        return {serial: int(top) for marks, part in lookups(serials)
+                for serial, top in self.db.execute(REVISIONS_QUERY.format(serials=marks),
+                                                   part)}
+
+    def add(self, rows: Sequence[tuple[dict[str, Any], int | None]]) -> None:
+        """Insert current rows, each clearing ``current`` on the row it supersedes."""
         try:
-            self.db.execute("PRAGMA wal_checkpoint(PASSIVE)")
+            self.db.executemany("UPDATE calibrations SET current = 0 WHERE id = ?",
+                                [(old,) for _, old in rows if old is not None])
+            self.db.executemany(INSERT, [tuple(values[c] for c in COLUMNS)
+                                         for values, _ in rows])
         except sqlite3.Error as exc:
-            raise OutputError(f"{self.path}: cannot checkpoint: {exc}") from None
-
-    def current(self, serial: str) -> Row | None:
-        """The serial's current calibration, if any."""
-        found = self.db.execute(ROW_QUERY, (serial,)).fetchone()
-        return None if found is None else Row(*found)
-
-    def next_revision(self, serial: str) -> int:
-        """1 + the serial's highest revision so far."""
-        found = self.db.execute("SELECT MAX(revision) FROM calibrations WHERE serial = ?",
-                                (serial,)).fetchone()[0]
-        return 1 if found is None else int(found) + 1
-
-    def add(self, values: dict[str, Any], supersedes: int | None) -> None:
-        """Insert a current row (clearing ``current`` on the row it supersedes)."""
-        try:
-            if supersedes is not None:
-                self.db.execute("UPDATE calibrations SET current = 0 WHERE id = ?",
-                                (supersedes,))
-            self.db.execute(f"INSERT INTO calibrations ({', '.join(COLUMNS)}) VALUES "
-                            f"({', '.join('?' * len(COLUMNS))})",
-                            tuple(values[c] for c in COLUMNS))
-        except sqlite3.Error as exc:
-            raise OutputError(f"{self.path}: cannot record {values['serial']}: {exc}") \
-                from None
+            raise OutputError(f"{self.path}: cannot record the group of "
+                              f"{rows[0][0]['serial']}: {exc}") from None
 
     def select(self, which: Filter) -> list[dict[str, Any]]:
         """Rows as dicts, by serial and revision."""
