@@ -44,8 +44,8 @@ def lot(name: str, units: int) -> tuple[CalibrationContext, list[UnitReadings]]:
     rng = np.random.default_rng(1)
     truths = [random_truth(f"U{i:06d}", rng) for i in range(units)]
     text = lot_csv(design, truths, seed=units, start_utc=START_UTC)
-    readings = parse_readings(text, design.spec, f"{name}.csv", per_unit=True)
-    return CalibrationContext.of(design), [readings.units[s] for s in readings.order]
+    readings = parse_readings(text, design.spec, f"{name}.csv")
+    return CalibrationContext.of(design), list(readings.units.values())
 
 
 def one_pass(ctx: CalibrationContext, units: list[UnitReadings]) -> tuple[float, float]:
