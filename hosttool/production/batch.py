@@ -278,9 +278,10 @@ class _Plan:
     write: bool                   # the image file must be (re)written
 
 
-def _existing(path: Path) -> bytes | None:
+def _existing(path: str) -> bytes | None:
     try:
-        return path.read_bytes()
+        with open(path, "rb") as file:
+            return file.read()
     except FileNotFoundError:
         return None
     except OSError as exc:
@@ -299,7 +300,7 @@ def _decide(st: Station, p: Prepared, row: Row | None, last_revision: int) -> _P
             done = Outcome(p.serial, p.verdict, p.reasons, row.hex_file, False, row.revision)
             if row.hex_file is None or p.image is None:
                 return _Plan(p, done, row.id, row.revision, None, False)
-            existing = _existing(st.folder / row.hex_file)
+            existing = _existing(os.path.join(st.folder, row.hex_file))
             if existing is not None and existing != p.image:
                 return _Plan(p, Outcome(
                     p.serial, "refused", (f"{row.hex_file}: differs from the image its record "
@@ -318,7 +319,7 @@ def _decide(st: Station, p: Prepared, row: Row | None, last_revision: int) -> _P
         return _Plan(p, None, None if row is None else row.id, revision, None, False)
     hex_file = f"{p.serial}.r{revision}.hex"
     # an existing file of that name is a killed run's, never recorded: adopt or replace it
-    write = _existing(st.folder / hex_file) != p.image
+    write = _existing(os.path.join(st.folder, hex_file)) != p.image
     return _Plan(p, None, None if row is None else row.id, revision, hex_file, write)
 
 
@@ -361,7 +362,8 @@ def commit_group(st: Station, group: list[Prepared]) -> list[Outcome]:
             if plan.prepared.staged is None:
                 continue
             if plan.write and plan.hex_file:
-                st.staging.publish(plan.prepared.staged, st.folder / plan.hex_file)
+                st.staging.publish(plan.prepared.staged,
+                                   os.path.join(st.folder, plan.hex_file))
                 published = True
             else:
                 st.staging.discard(plan.prepared.staged)

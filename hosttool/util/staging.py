@@ -16,6 +16,7 @@ staging folder (``.hosttool-staging-<pid>-<random>``) is held by a lock (flock o
 
 from __future__ import annotations
 
+import contextlib
 import fcntl
 import os
 import shutil
@@ -57,7 +58,7 @@ def fsync_folder(folder: Path) -> None:
         raise OutputError(f"{folder}: cannot flush the folder: {exc.strerror}") from None
 
 
-def _write_synced(path: Path, data: bytes) -> None:
+def _write_synced(path: str, data: bytes) -> None:
     try:
         fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o666)
         try:
@@ -83,23 +84,25 @@ class Staging:
             raise OutputError(f"{folder}: cannot make a staging folder: {exc.strerror}") \
                 from None
         fcntl.flock(self._owner, fcntl.LOCK_EX)
+        self._inside = f"{self.path}{os.sep}"          # names joined as text: many per lot
 
     def stage(self, name: str, data: bytes) -> Future[None]:
         """Write ``data`` as ``name`` in the staging folder; the future is done when the
         file is on disk (fsynced)."""
-        return fsync_pool().submit(_write_synced, self.path / name, data)
+        return fsync_pool().submit(_write_synced, self._inside + name, data)
 
-    def publish(self, name: str, final: Path) -> None:
+    def publish(self, name: str, final: str) -> None:
         """Rename the staged file ``name`` to ``final`` (in the output folder; durable once
         that folder is fsynced)."""
         try:
-            os.replace(self.path / name, final)
+            os.replace(self._inside + name, final)
         except OSError as exc:
             raise OutputError(f"{final}: cannot write: {exc.strerror}") from None
 
     def discard(self, name: str) -> None:
         """Remove a staged file that is not published."""
-        (self.path / name).unlink(missing_ok=True)
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(self._inside + name)
 
     def close(self) -> None:
         """Remove the staging folder and release it."""
