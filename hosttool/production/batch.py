@@ -59,7 +59,6 @@ from hosttool.formats.readings import (
     unit_cal_time,
 )
 from hosttool.formats.standards import Standard, load_standards
-from hosttool.production.certificate import write_certificates
 from hosttool.production.fit import CalibrationContext, calibrate_unit, point_limits
 from hosttool.production.record import Record, Row
 from hosttool.production.record_open import open_record
@@ -495,10 +494,13 @@ def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: str | Path
                     stream = progress(stream, len(readings.units))
                 outcomes = tuple(o for group in _groups(stream, GROUP)
                                  for o in commit_group(st, group))
-                pages = write_certificates(record, out, [(o.serial, o.revision)
-                                                         for o in outcomes
-                                                         if o.status == "pass"]) \
-                    if certificates else {}
+                pages: dict[str, str] = {}
+                if certificates:
+                    # deferred on purpose: the certificate pages bring jinja2
+                    from hosttool.production.certificate import write_certificates
+                    pages = write_certificates(record, out, [(o.serial, o.revision)
+                                                             for o in outcomes
+                                                             if o.status == "pass"])
             finally:
                 record.close()
     finally:
