@@ -135,7 +135,6 @@ def bench_spec(name: str, args: argparse.Namespace) -> None:
     temps = static_temperatures(design)
     with tempfile.TemporaryDirectory() as tmp:
         lib = build_bare(design, Path(tmp))
-        lib.ht_sweep_record.restype = ctypes.c_uint32
         bound = design.static_error_bound_lsb
         result: dict[str, tuple[float, float]] = {}
 
@@ -155,27 +154,7 @@ def bench_spec(name: str, args: argparse.Namespace) -> None:
         print(f"  ratio {tp / tc:5.2f}x   hosttool {tp:7.3f} s ({tp / evals * 1e9:5.2f} ns/eval)"
               f"   fused C {tc:7.3f} s ({tc / evals * 1e9:5.2f} ns/eval)   {same}")
 
-        rng = np.random.default_rng(1)
-        codes = rng.integers(design.code_min, design.code_max + 1, args.samples)
-        t_ref = design.temperature.reference_centi if design.temperature else None
-        tt = None if t_ref is None else np.full(codes.size, t_ref, dtype=np.int64)
-        x32 = codes.astype(np.int32)
-        t32 = None if tt is None else tt.astype(np.int32)
-        out32 = np.empty(codes.size + 1, dtype=np.int32)
-
-        def py_chain() -> None:
-            run_integer(design, codes, tt)
-
-        def bare_chain() -> None:
-            lib.ht_sweep_record(x32.ctypes.data_as(_P32),
-                                None if t32 is None else t32.ctypes.data_as(_P32),
-                                ctypes.c_uint32(x32.size), out32.ctypes.data_as(_P32))
-
-        tp, tc = _interleaved(py_chain, bare_chain, args.repeat)
-        n = codes.size
-        print(f"  dynamic chain, {n:,} samples, one core")
-        print(f"  ratio {tp / tc:5.2f}x   hosttool {tp / n * 1e9:6.1f} ns/sample"
-              f"   ht_process in memory {tc / n * 1e9:6.1f} ns/sample")
+        bench_chain(design, lib, args)
 
     exe = [sys.executable, "-m", "hosttool"]
     verify = statistics.median(_cli(*exe, "verify", str(spec_path), "--json")
@@ -184,6 +163,38 @@ def bench_spec(name: str, args: argparse.Namespace) -> None:
     bare = statistics.median(_cli(sys.executable, "-c", "pass") for _ in range(args.repeat))
     print(f"  whole verify {verify:6.2f} s   check {check * 1e3:5.0f} ms = bare Python start "
           f"{bare * 1e3:4.0f} ms + {(check - bare) * 1e3:4.0f} ms")
+
+
+def bench_chain(design: Design, lib: ctypes.CDLL, args: argparse.Namespace) -> None:
+    """The integer model through the whole chain (run_integer as verify calls it: int64
+    codes and temperatures in, a new int64 output, flags, peaks and saturation counts out)
+    against ht_sweep_record over int32 arrays prepared beforehand, into a buffer made once;
+    the outputs are compared after the timing."""
+    rng = np.random.default_rng(1)
+    codes = rng.integers(design.code_min, design.code_max + 1, args.samples)
+    t_ref = design.temperature.reference_centi if design.temperature else None
+    tt = None if t_ref is None else np.full(codes.size, t_ref, dtype=np.int64)
+    x32 = codes.astype(np.int32)
+    t32 = None if tt is None else tt.astype(np.int32)
+    out32 = np.empty(codes.size + 1, dtype=np.int32)
+    lib.ht_sweep_record.restype = ctypes.c_uint32
+    made = [0]
+
+    def py_chain() -> None:
+        run_integer(design, codes, tt)
+
+    def bare_chain() -> None:
+        made[0] = lib.ht_sweep_record(x32.ctypes.data_as(_P32),
+                                      None if t32 is None else t32.ctypes.data_as(_P32),
+                                      ctypes.c_uint32(x32.size), out32.ctypes.data_as(_P32))
+
+    tp, tc = _interleaved(py_chain, bare_chain, args.repeat)
+    n = codes.size
+    same = ("same outputs" if np.array_equal(run_integer(design, codes, tt).output,
+                                             out32[:made[0]]) else "OUTPUTS DIFFER")
+    print(f"  dynamic chain, {n:,} samples, one core")
+    print(f"  ratio {tp / tc:5.2f}x   hosttool {tp / n * 1e9:6.1f} ns/sample"
+          f"   ht_process in memory {tc / n * 1e9:6.1f} ns/sample   {same}")
 
 
 def bench_batch(args: argparse.Namespace) -> None:
