@@ -4,8 +4,8 @@ The integer model follows DEVELOPERS.md "Arithmetic contract" operation by opera
 reference firmware must give the same integers. The whole integer chain (offset, filter
 cascade, scale, linearisation, temperature) runs as one compiled function (numba) per
 record, in exact integer arithmetic (the design proves nothing overflows): the one compiled
-for the cascade's shape (chain.py: the filter recursion sample by sample, the statistics and
-the static path vectorised per block), or without a cache folder the generic loop
+for the cascade's shape (chain.py: stage by stage over blocks of inputs, vectorised but for
+the biquad recursion), or without a cache folder the generic loop
 ``_chain_run``, which gives the same integers. The static path is one compiled function
 (``static_word``); the exhaustive sweep (verify/sweep.py) runs the same operations in the
 form a sweep at one temperature allows, held to them by its tests.
@@ -150,10 +150,10 @@ def clamp32(v: int) -> int:  # pragma: no cover - compiled
 
 @njit(cache=True, nogil=True)
 def round_shift(x: int, k: int) -> int:  # pragma: no cover - compiled
-    """(x + 2^(k-1)) >> k with an arithmetic shift; the identity for k = 0."""
-    if k == 0:
-        return x
-    return int((x + (np.int64(1) << (k - 1))) >> k)
+    """(x + 2^(k-1)) >> k with an arithmetic shift; the identity for k = 0.
+
+    Written without a branch: (2^k) >> 1 is 2^(k-1), and 0 for k = 0 (x + 0) >> 0 = x."""
+    return int((x + ((np.int64(1) << k) >> 1)) >> k)
 
 
 @njit(cache=True, nogil=True)
