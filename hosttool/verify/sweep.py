@@ -108,6 +108,7 @@ def _sweep(first: int, chunks: int, chunk: int, t: int, ip: Ints, lin: Ints, fp:
     outs = np.empty(_BLOCK, dtype=np.int64)
     errs = np.empty(_BLOCK, dtype=np.float64)
     slots = np.empty(_BLOCK, dtype=np.int64)
+    counts = np.zeros((hist.size, 4), dtype=np.int64)
     stack = np.zeros(64, dtype=np.float64)
     levels = np.zeros(64, dtype=np.int64)
     # the temperature step's terms at t; without one, terms that leave every value as it is
@@ -167,18 +168,32 @@ def _sweep(first: int, chunks: int, chunk: int, t: int, ip: Ints, lin: Ints, fp:
                 outs[j] = s
                 errs[j] = float(s) - ref
             sat_count += sats
-            # numpy's pairwise summation: 8 partial sums over the block, then a tree
+            # numpy's pairwise summation: 8 partial sums over the block, then a tree; the
+            # largest |error| in the same 8 lanes (max is exact in any order)
             p0, p1, p2, p3 = abs(errs[0]), abs(errs[1]), abs(errs[2]), abs(errs[3])
             p4, p5, p6, p7 = abs(errs[4]), abs(errs[5]), abs(errs[6]), abs(errs[7])
+            m0, m1, m2, m3, m4, m5, m6, m7 = p0, p1, p2, p3, p4, p5, p6, p7
             for j in range(8, _BLOCK, 8):
-                p0 += abs(errs[j])
-                p1 += abs(errs[j + 1])
-                p2 += abs(errs[j + 2])
-                p3 += abs(errs[j + 3])
-                p4 += abs(errs[j + 4])
-                p5 += abs(errs[j + 5])
-                p6 += abs(errs[j + 6])
-                p7 += abs(errs[j + 7])
+                a0, a1, a2, a3 = abs(errs[j]), abs(errs[j + 1]), abs(errs[j + 2]), \
+                    abs(errs[j + 3])
+                a4, a5, a6, a7 = abs(errs[j + 4]), abs(errs[j + 5]), abs(errs[j + 6]), \
+                    abs(errs[j + 7])
+                p0 += a0
+                p1 += a1
+                p2 += a2
+                p3 += a3
+                p4 += a4
+                p5 += a5
+                p6 += a6
+                p7 += a7
+                m0 = max(m0, a0)
+                m1 = max(m1, a1)
+                m2 = max(m2, a2)
+                m3 = max(m3, a3)
+                m4 = max(m4, a4)
+                m5 = max(m5, a5)
+                m6 = max(m6, a6)
+                m7 = max(m7, a7)
             total = ((p0 + p1) + (p2 + p3)) + ((p4 + p5) + (p6 + p7))
             level = 0
             while depth > 0 and levels[depth - 1] == level:
@@ -188,17 +203,20 @@ def _sweep(first: int, chunks: int, chunk: int, t: int, ip: Ints, lin: Ints, fp:
             stack[depth] = total
             levels[depth] = level
             depth += 1
-            block_max = 0.0
-            for j in range(_BLOCK):
-                a = abs(errs[j])
-                block_max = a if a > block_max else block_max
-            max_err = block_max if block_max > max_err else max_err
+            block_max = max(max(max(m0, m1), max(m2, m3)), max(max(m4, m5), max(m6, m7)))
+            max_err = max(max_err, block_max)
+            # a fall (rise, with a negative span multiplier) between neighbouring codes
+            falls = 0
+            rises = 0
             if base == 0:
                 ints[_I_FIRST] = outs[0]
-            elif (outs[0] - previous) * sign < 0:
-                breaks += 1
+            else:
+                falls += outs[0] < previous
+                rises += outs[0] > previous
             for j in range(1, _BLOCK):
-                breaks += (outs[j] - outs[j - 1]) * sign < 0
+                falls += outs[j] < outs[j - 1]
+                rises += outs[j] > outs[j - 1]
+            breaks += falls if sign > 0 else rises
             previous = outs[_BLOCK - 1]
             if compare:
                 for j in range(_BLOCK):
@@ -214,10 +232,17 @@ def _sweep(first: int, chunks: int, chunk: int, t: int, ip: Ints, lin: Ints, fp:
                 for j in range(_BLOCK):
                     e = min(max(errs[j], -bound), bound)
                     slots[j] = min(int((e + bound) / width), top)
-                for j in range(_BLOCK):
-                    hist[slots[j]] += 1
+                # four counts per bin, so that neighbouring codes in one bin do not wait
+                # on each other
+                for j in range(0, _BLOCK, 4):
+                    counts[slots[j], 0] += 1
+                    counts[slots[j + 1], 1] += 1
+                    counts[slots[j + 2], 2] += 1
+                    counts[slots[j + 3], 3] += 1
         # a chunk is a power of two of blocks: one sum is left
         sums[c] = stack[0]
+    for b in range(hist.size):
+        hist[b] += counts[b, 0] + counts[b, 1] + counts[b, 2] + counts[b, 3]
     ints[_I_SAT] = sat_count
     ints[_I_MONO] = 1 if breaks == 0 else 0
     ints[_I_LAST] = previous
