@@ -159,7 +159,8 @@ def _stimuli(design: Design, samples: int, rng: np.random.Generator
     sweep = 0.5 * (lo + hi) + 0.45 * span * _linear_chirp(t, band / 100, t[-1], band)
     out.append(("sine_sweep", f"sine sweep {band / 100:.3g} .. {band:.3g} Hz at 90 % of span",
                 codes.of(sweep), None))
-    noise = codes.of(np.full(max(samples // 4, n), 0.5 * (lo + hi))) + np.rint(
+    # a constant load's codes: one code, repeated
+    noise = np.full(max(samples // 4, n), codes.of(0.5 * (lo + hi))) + np.rint(
         rng.normal(0.0, design.budget.noise_counts_rms, max(samples // 4, n))).astype(np.int64)
     out.append(("adc_noise", f"mid-range with Gaussian ADC noise of "
                 f"{design.budget.noise_counts_rms:.3g} counts RMS", noise, None))
@@ -170,7 +171,7 @@ def _stimuli(design: Design, samples: int, rng: np.random.Generator
     for f in (50.0, 60.0):
         amplitude = HUM_FRACTION * codes.limit
         tt = np.arange(max(samples // 8, n)) / fs
-        hum = codes.of(np.full(tt.size, 0.5 * (lo + hi))) + np.rint(
+        hum = np.full(tt.size, codes.of(0.5 * (lo + hi))) + np.rint(
             amplitude * np.sin(2 * np.pi * f * tt)).astype(np.int64)
         out.append((f"mains_{f:g}hz", f"mid-range plus {f:g} Hz hum of {HUM_FRACTION:.0%} of the "
                     "ADC range", hum, None))
@@ -179,7 +180,7 @@ def _stimuli(design: Design, samples: int, rng: np.random.Generator
         m = max(samples // 8, n)
         temps = np.linspace(tc.min_centi, tc.max_centi, m).astype(np.int64)
         out.append(("temperature_ramp", f"75 % load, temperature {tc.min_centi / 100:g} .. "
-                    f"{tc.max_centi / 100:g} C", codes.of(np.full(m, lo + 0.75 * span)), temps))
+                    f"{tc.max_centi / 100:g} C", np.full(m, codes.of(lo + 0.75 * span)), temps))
     long = rng.integers(-codes.limit, codes.limit, max(samples, LONG_RUN_MIN))
     out.append(("long_run", f"{long.size} uniformly random codes over the whole ADC range",
                 long, None))
@@ -199,9 +200,9 @@ def _linear_chirp(t: NDArray[np.float64], f0: float, t1: float, f1: float
     return np.asarray(np.cos(phase + 0.0), dtype=np.float64)
 
 
-def _sqnr(reference: NDArray[np.float64], error: NDArray[np.float64]) -> float | None:
+def _sqnr(reference: NDArray[np.float64], noise_power: float) -> float | None:
+    """Signal to quantisation noise (dB) of a reference and the mean square of its error."""
     signal_power = float(np.mean((reference - reference.mean()) ** 2))
-    noise_power = float(np.mean(error ** 2))
     if signal_power == 0 or noise_power == 0:
         return None
     return 10 * math.log10(signal_power / noise_power)
@@ -225,7 +226,8 @@ def _dynamic(design: Design, name: str, description: str, codes: I64, temps: I64
         agree = same if agree is None else (agree and same)
     # SQNR and effective bits need a signal: a constant load with noise, hum or a
     # temperature sweep on it, or a worst-case pattern, has none to compare the error with
-    sqnr = None if name.startswith(NO_SIGNAL_TESTS) else _sqnr(ref, err)
+    mean_square = float(np.mean(err ** 2)) if err.size else math.nan
+    sqnr = None if name.startswith(NO_SIGNAL_TESTS) else _sqnr(ref, mean_square)
     figures: dict[str, float] = {}
     trace = None
     if name == "step_full_scale":
@@ -249,7 +251,7 @@ def _dynamic(design: Design, name: str, description: str, codes: I64, temps: I64
     passed = max_err <= bound and sum(run.saturations.values()) == 0 and agree is not False
     return TestResult(
         name=name, description=description, samples=int(codes.size), outputs=int(err.size),
-        max_error_lsb=max_err, rms_error_lsb=float(np.sqrt(np.mean(err ** 2))) if err.size else 0,
+        max_error_lsb=max_err, rms_error_lsb=math.sqrt(mean_square) if err.size else 0,
         bound_lsb=bound, sqnr_db=sqnr,
         enob_bits=None if sqnr is None else (sqnr - 1.76) / 6.02,
         saturations=dict(run.saturations), peaks=dict(run.peaks), engines_agree=agree,
