@@ -114,3 +114,15 @@ def test_codes_outside_the_range_are_refused(designs: dict[str, Design], tmp_pat
         run_integer(d, codes.reshape(2, -1))
     with pytest.raises(ValueError, match="pair one to one"):
         run_integer(d, codes[:10], np.zeros(9, dtype=np.int64))
+
+
+def test_the_kernel_source_changes_with_model_py() -> None:
+    # numba keys its cache of the kernel on the kernel's file alone, yet compiles model.py's
+    # helpers (round_shift, static_word ...) into it: the source must name model.py's
+    # content, so that an edit there makes a new kernel file and a new compilation
+    import hashlib
+
+    from hosttool.design import chain, model
+
+    digest = hashlib.sha256(Path(model.__file__).read_bytes()).hexdigest()[:16]
+    assert f"model.py {digest}" in chain._source((("fir", 3, 2), ("biquad", 0, 1)))
