@@ -87,6 +87,8 @@ _NO_EXPECTED = np.zeros(1, dtype=np.int32)
 _I_SAT, _I_MONO, _I_FIRST, _I_LAST, _I_MISMATCH, _I_FIRST_MISMATCH = range(6)
 
 
+# error_model="numpy": no test for a zero divisor in the loop (2^K and the histogram's bin
+# width are never zero); no other operation changes
 @njit(cache=True, nogil=True, error_model="numpy")
 def _sweep(first: int, chunks: int, chunk: int, t: int, ip: Ints, lin: Ints, fp: Floats,
            flin: Floats, sign: int, bound: float, width: float, per_bin: int, bins: F64,
