@@ -10,7 +10,13 @@ from datetime import datetime
 import pytest
 
 from hosttool.errors import InputError
-from hosttool.util.utctime import TIME_MAX, TIME_MIN, format_time_utc, parse_time_utc
+from hosttool.util.utctime import (
+    TIME_MAX,
+    TIME_MIN,
+    format_time_utc,
+    parse_time_utc,
+    parse_times_utc,
+)
 
 
 def test_seconds_agree_with_calendar_timegm_over_the_whole_range() -> None:
@@ -46,3 +52,22 @@ def test_leap_day_and_century_rule() -> None:
         (2000, 2, 29, 0, 0, 0, 0, 0, 0))
     with pytest.raises(InputError, match="day is out of range"):
         parse_time_utc("2100-02-29T00:00:00Z", "t")
+
+
+def test_a_column_of_times_gives_what_each_time_gives_alone() -> None:
+    # parse_times_utc (readings columns, each date turned into days once) against
+    # parse_time_utc one by one, on valid times and on every kind of refused one
+    rng = random.Random(7)
+    texts = [format_time_utc(rng.randrange(TIME_MIN, TIME_MAX + 1)) for _ in range(3000)]
+    texts += ["2024-02-29T23:59:59Z", "2024-02-30T00:00:00Z", "2025-03-04T24:00:00Z",
+              "2025-03-04T08:60:00+00:00", "2025-03-04T08:15:60Z", "1969-12-31T23:59:59Z",
+              "0000-01-01T00:00:00Z", "9999-12-31T23:59:59Z", " 2025-03-04T08:15:00Z ",
+              "2025-03-04 08:15:00Z", "2025-03-04T08:15:00.5Z", "", "2025-13-01T00:00:00Z"]
+    rng.shuffle(texts)
+    seconds, refused = parse_times_utc(texts)
+    for i, text in enumerate(texts):
+        try:
+            assert seconds[i] == parse_time_utc(text, "") and i not in refused
+        except InputError as exc:
+            assert refused[i] == str(exc).removeprefix(": ") and seconds[i] == 0
+    assert len(refused) == 10

@@ -38,7 +38,7 @@ from hosttool.errors import InputError
 from hosttool.physics.adc import code_range
 from hosttool.spec.schema import Spec
 from hosttool.util.text import control_character, shown
-from hosttool.util.utctime import parse_time_utc
+from hosttool.util.utctime import parse_times_utc
 
 #: A serial (full match): it names files and fills the block's 16-byte field.
 SERIAL_RE = re.compile(r"[A-Za-z0-9][A-Za-z0-9._-]{0,15}")
@@ -198,17 +198,11 @@ def _checks(cells: dict[str, list[str]], rules: _Rules, has_time: bool) -> list[
                lambda i: f"{shown(cells['direction'][i])} is not 'up' or 'down'"),
     ]
     if has_time:
-        stamps = cells["time_utc"]
-        times = np.zeros(len(stamps), dtype=np.int64)
-        refused: dict[int, str] = {}
-        for i, stamp in enumerate(stamps):
-            try:
-                times[i] = parse_time_utc(stamp, "")
-            except InputError as exc:
-                refused[i] = str(exc).removeprefix(": ")
-        bad = np.zeros(len(stamps), dtype=bool)
+        seconds, refused = parse_times_utc(cells["time_utc"])
+        bad = np.zeros(len(seconds), dtype=bool)
         bad[list(refused)] = True
-        checks.append(_Check("time_utc", times, bad, refused.__getitem__))
+        checks.append(_Check("time_utc", np.array(seconds, dtype=np.int64), bad,
+                             refused.__getitem__))
     return checks
 
 

@@ -15,7 +15,8 @@ and every time in range can be written back in the same form.
 from __future__ import annotations
 
 import re
-from datetime import UTC, datetime
+from collections.abc import Sequence
+from datetime import UTC, date, datetime
 
 from hosttool.errors import InputError
 from hosttool.util.text import shown
@@ -47,6 +48,38 @@ def parse_time_utc(text: str, where: str) -> int:
     seconds = (stamp.toordinal() - _EPOCH_DAY) * 86_400 + hour * 3_600 + minute * 60 + second
     check_time_range(seconds, where)
     return seconds
+
+
+def parse_times_utc(texts: Sequence[str]) -> tuple[list[int], dict[int, str]]:
+    """``parse_time_utc`` of each text (a readings column): the seconds (0 where refused)
+    and, by index, why each refused text is refused (``parse_time_utc``'s message after
+    ``where: ``). Each distinct date is turned into days once."""
+    days: dict[str, int] = {}
+    seconds: list[int] = []
+    refused: dict[int, str] = {}
+    for i, text in enumerate(texts):
+        match = TIME_RE.fullmatch(text.strip())
+        if match is not None:
+            day_text = text.strip()[:10]
+            hour, minute, second = int(match[4]), int(match[5]), int(match[6])
+            if day_text not in days:
+                try:
+                    days[day_text] = date(int(match[1]), int(match[2]),
+                                             int(match[3])).toordinal() - _EPOCH_DAY
+                except ValueError:
+                    days[day_text] = -1          # refused below, with the reason
+            day = days[day_text]
+            if day >= 0 and hour < 24 and minute < 60 and second < 60:
+                value = day * 86_400 + hour * 3_600 + minute * 60 + second
+                if value <= TIME_MAX:
+                    seconds.append(value)
+                    continue
+        try:
+            seconds.append(parse_time_utc(text, ""))
+        except InputError as exc:
+            seconds.append(0)
+            refused[i] = str(exc).removeprefix(": ")
+    return seconds, refused
 
 
 def check_time_range(seconds: int, where: str) -> None:
