@@ -121,8 +121,8 @@ def static_params(design: Design, *, ideal: bool = False,
     if lin is not None:
         ints[P_HAS_LIN], ints[P_LIN_SHIFT] = 1, LIN_FRAC - lin.norm_shift
         floats[F_NORM] = 2.0 ** lin.norm_shift
-        lin_int = tuple(int(k) for k in c.lin)
-        flin = tuple(float(k) for k in lin.coeffs) if ideal else tuple(
+        lin_int = tuple(map(int, c.lin))
+        flin = tuple(map(float, lin.coeffs)) if ideal else tuple(
             k / 2.0 ** LIN_FRAC for k in c.lin)
     if tc is not None:
         ints[P_HAS_TC], ints[P_TREF] = 1, tc.reference_centi
@@ -131,8 +131,7 @@ def static_params(design: Design, *, ideal: bool = False,
                                                           c.tc_span, tc.span_shift)
         floats[F_ALPHA] = tc.realised_zero(c.tc_zero)
         floats[F_GAMMA] = tc.realised_span(c.tc_span)
-    return StaticParams(tuple(int(i) for i in ints), lin_int,
-                        tuple(float(f) for f in floats), flin)
+    return StaticParams(tuple(map(int, ints)), lin_int, tuple(map(float, floats)), flin)
 
 
 # ----------------------------------------------------------------------------- kernels
@@ -519,8 +518,9 @@ def static_integer(design: Design, codes: ArrayLike, temps_centi: ArrayLike | No
                                           p.ints, p.lin)
     run = IntegerRun(output=out, rail=(flags & _FLAG_RAIL) != 0,
                      clamped=(flags & _FLAG_CLAMPED) != 0)
+    sat_list, peak_list = sats.tolist(), peaks.tolist()
     for i, name in [(0, "offset"), *_static_names(design)]:
-        run.saturations[name], run.peaks[name] = int(sats[i]), int(peaks[i])
+        run.saturations[name], run.peaks[name] = sat_list[i], peak_list[i]
     return run
 
 

@@ -118,6 +118,7 @@ class Design:
     converter: Converter        # the ADC at the chosen gain: code range, LSB in volts
     guard_bits: int             # G
     input_bound: int            # |d| <= this, chain words (2^(bits + G))
+    chain_bound: float          # worst |word| out of the cascade: L1 x input_bound + rounding
     stages: tuple[Stage, ...]
     cascade: CascadeAnalysis
     nodes: tuple[NodeBound, ...]          # the filter cascade's nodes and accumulators
@@ -212,8 +213,8 @@ class Design:
     def check_in_force(self, constants: UnitConstants) -> None:
         """Refuse (DesignError) the constants ``with_constants`` refuses, building nothing:
         the check a production line runs per unit before the static path."""
-        _checked_static_nodes(self.spec, self.cascade, self.guard_bits, self.scale,
-                              self.linearisation, self.temperature, constants)
+        _checked_static_nodes(self.spec, self.chain_bound, self.decimation, self.guard_bits,
+                              self.scale, self.linearisation, self.temperature, constants)
 
     def with_constants(self, constants: UnitConstants) -> Design:
         """The same design carrying one unit's constants (bounds recomputed for them).
@@ -223,8 +224,8 @@ class Design:
         enough to call once per unit on a production line.
         """
         return dataclasses.replace(self, **_unit_fields(
-            self.spec, self.cascade, self.guard_bits, self.scale, self.linearisation,
-            self.temperature, constants, self.filter_report.warnings))
+            self.spec, self.cascade, self.chain_bound, self.guard_bits, self.scale,
+            self.linearisation, self.temperature, constants, self.filter_report.warnings))
 
 
 def _guard_bits(bits: int, analysis: CascadeAnalysis, field: str) -> int:
@@ -416,19 +417,24 @@ def _stopband_edge(spec: Spec, band_hz: float) -> float | None:
     return edge if band_hz < edge else None
 
 
-def _scaled_bound(cascade: CascadeAnalysis, input_bound: int, scale: Scale) -> float:
+def _chain_bound(cascade: CascadeAnalysis, input_bound: int) -> float:
+    """Worst |word| out of the cascade over the whole ADC range, chain LSB."""
+    return cascade.total.l1 * input_bound + cascade.output_rounding
+
+
+def _scaled_bound(chain_bound: float, scale: Scale) -> float:
     """Worst |s| after the scale over the whole ADC range, output LSB."""
-    chain_bound = cascade.total.l1 * input_bound + cascade.output_rounding
     return chain_bound * scale.multiplier_range + 0.5
 
 
-def _unit_fields(spec: Spec, cascade: CascadeAnalysis, g: int, scale: Scale,
-                 lin: LinPolynomial | None, temp: TempComp | None, c: UnitConstants,
-                 filter_warnings: tuple[str, ...]) -> dict[str, Any]:
+def _unit_fields(spec: Spec, cascade: CascadeAnalysis, chain_bound: float, g: int,
+                 scale: Scale, lin: LinPolynomial | None, temp: TempComp | None,
+                 c: UnitConstants, filter_warnings: tuple[str, ...]) -> dict[str, Any]:
     """The Design fields that depend on the constants in force, after checking them."""
-    static = _checked_static_nodes(spec, cascade, g, scale, lin, temp, c)
+    static = _checked_static_nodes(spec, chain_bound, cascade.decimation, g, scale, lin,
+                                   temp, c)
     input_bound = 1 << (spec.adc.bits + g)
-    scaled_bound = _scaled_bound(cascade, input_bound, scale)
+    scaled_bound = _scaled_bound(chain_bound, scale)
     errors = _errors(spec, cascade, scale, c, lin, temp, scaled_bound)
     design_errors = _design_errors(cascade, input_bound, scale, c, lin)
     out_bound = static[-1].bound
@@ -440,16 +446,15 @@ def _unit_fields(spec: Spec, cascade: CascadeAnalysis, g: int, scale: Scale,
             "static_nodes": static, "output_bound_lsb": out_bound, "warnings": tuple(warnings)}
 
 
-def _checked_static_nodes(spec: Spec, cascade: CascadeAnalysis, g: int, scale: Scale,
-                          lin: LinPolynomial | None, temp: TempComp | None,
+def _checked_static_nodes(spec: Spec, chain_bound: float, decimation: int, g: int,
+                          scale: Scale, lin: LinPolynomial | None, temp: TempComp | None,
                           c: UnitConstants) -> tuple[NodeBound, ...]:
     """The static path's nodes for constants ``c``, after checking them: inside their
     formats, and no 64-bit product that could overflow (DesignError otherwise)."""
     check_constants(c, bits=spec.adc.bits, g=g, scale=scale, lin=lin, temp=temp,
                     source=spec.source)
-    chain_bound = cascade.total.l1 * (1 << (spec.adc.bits + g)) + cascade.output_rounding
     static = _static_nodes(chain_bound, scale, lin, temp, c,
-                           spec.adc.data_rate_sps / cascade.decimation)
+                           spec.adc.data_rate_sps / decimation)
     for node in static:
         if node.word == 64 and node.headroom_bits < 0:
             raise DesignError(f"{spec.source}: {node.name} can reach {node.bound:.4g}, beyond "
@@ -507,7 +512,8 @@ def make_design(spec: Spec, constants: UnitConstants | None = None) -> Design:
             raise DesignError(f"{spec.source}: filter: node {node.name} can reach "
                               f"{node.bound:.4g}, beyond its {node.word}-bit word")
     scale = _scale(spec, budget, g)
-    scaled_bound = _scaled_bound(cascade, input_bound, scale)
+    chain_bound = _chain_bound(cascade, input_bound)
+    scaled_bound = _scaled_bound(chain_bound, scale)
     bridge = bridge_of(spec.sensor)
     converter = budget.converter(spec.adc.bits)
     lin = _linearisation(spec, bridge, min(scaled_bound, INT32_MAX))
@@ -520,10 +526,10 @@ def make_design(spec: Spec, constants: UnitConstants | None = None) -> Design:
                            adc_rate_hz=spec.adc.data_rate_sps, sinc_order=spec.adc.sinc_order,
                            full_scale_lsb=full_scale_lsb,
                            sinc_decimation=sinc_decimation(spec.adc))
-    unit = _unit_fields(spec, cascade, g, scale, lin, temp,
+    unit = _unit_fields(spec, cascade, chain_bound, g, scale, lin, temp,
                         nominal if constants is None else constants, tuple(report.warnings))
     return Design(spec=spec, budget=budget, bridge=bridge, converter=converter, guard_bits=g,
-                  input_bound=input_bound,
+                  input_bound=input_bound, chain_bound=chain_bound,
                   stages=stages, cascade=cascade, nodes=nodes, scale=scale,
                   linearisation=lin, temperature=temp, nominal=nominal,
                   filter_report=report, **unit)

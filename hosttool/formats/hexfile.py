@@ -63,10 +63,16 @@ RECORD_BYTES = 16
 END_RECORD = ":00000001FF"
 
 
-def _record(address: int, kind: int, data: bytes) -> str:
-    """One record: ``:LLAAAATT<data>CC``, CC the two's complement of the sum of the others."""
-    raw = bytes((len(data), address >> 8, address & 0xFF, kind)) + data
-    return ":" + (raw + bytes(((-sum(raw)) & 0xFF,))).hex().upper()
+def _record(address: int, kind: int, data: bytes, digits: str) -> str:
+    """One record ``:LLAAAATTDD..CC`` of ``data`` (``digits``: its upper-case hex), CC the
+    two's complement of the sum of the other bytes."""
+    size = len(data)
+    check = -(size + (address >> 8) + (address & 0xFF) + kind + sum(data)) & 0xFF
+    return f":{size:02X}{address:04X}{kind:02X}{digits}{check:02X}"
+
+
+def _short(address: int, kind: int, data: bytes) -> str:
+    return _record(address, kind, data, data.hex().upper())
 
 
 def intel_hex(runs: list[tuple[int, bytes]], *, start: dict[str, int] | None = None) -> str:
@@ -79,29 +85,30 @@ def intel_hex(runs: list[tuple[int, bytes]], *, start: dict[str, int] | None = N
             joined[-1] = (joined[-1][0], joined[-1][1] + data)
         else:
             joined.append((address, data))
-    runs = joined
     lines = []
     if start:
         if sorted(start) == ["CS", "IP"]:
-            lines.append(_record(0, 3, start["CS"].to_bytes(2, "big")
-                                 + start["IP"].to_bytes(2, "big")))
+            lines.append(_short(0, 3, start["CS"].to_bytes(2, "big")
+                                + start["IP"].to_bytes(2, "big")))
         elif sorted(start) == ["EIP"]:
-            lines.append(_record(0, 5, start["EIP"].to_bytes(4, "big")))
+            lines.append(_short(0, 5, start["EIP"].to_bytes(4, "big")))
         else:
             raise ValueError(f"start address {start}: neither CS and IP nor EIP")
-    if runs and runs[-1][0] + len(runs[-1][1]) > 1 << 32:
+    end = joined[-1][0] + len(joined[-1][1]) if joined else 0
+    if end > 1 << 32:
         raise ValueError("Intel HEX addresses end at 0xFFFFFFFF")
-    extended = bool(runs) and runs[-1][0] + len(runs[-1][1]) - 1 > 0xFFFF
     upper = -1
-    for address, data in runs:
+    for address, data in joined:
+        digits = data.hex().upper()
         pos = 0
         while pos < len(data):
             at = address + pos
-            if extended and at >> 16 != upper:
+            if end > 0x10000 and at >> 16 != upper:
                 upper = at >> 16
-                lines.append(_record(0, 4, upper.to_bytes(2, "big")))
+                lines.append(_short(0, 4, upper.to_bytes(2, "big")))
             size = min(RECORD_BYTES, 0x10000 - (at & 0xFFFF), len(data) - pos)
-            lines.append(_record(at & 0xFFFF, 0, data[pos:pos + size]))
+            lines.append(_record(at & 0xFFFF, 0, data[pos:pos + size],
+                                 digits[2 * pos:2 * (pos + size)]))
             pos += size
     lines.append(END_RECORD)
     return "\n".join(lines) + "\n"

@@ -33,7 +33,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, NamedTuple
 
 import numpy as np
 from numpy.typing import NDArray
@@ -76,9 +76,9 @@ DISAGREE_PCT_SPAN = 1.0
 MAX_CONDITION = 1e8
 
 
-@dataclass(frozen=True)
-class Criterion:
-    """One row of the pass/fail table; ``limit`` None means reported, not judged."""
+class Criterion(NamedTuple):
+    """One row of the pass/fail table; ``limit`` None means reported, not judged (a named
+    tuple: a dozen per unit, made faster than frozen dataclasses)."""
 
     key: str                # stable name (JSON, record)
     label: str
@@ -266,18 +266,17 @@ def _refuse_points(ctx: CalibrationContext, u: UnitReadings, lay: _Layout) -> No
     cal = spec.calibration
     assert cal is not None
     unit = spec.sensor.unit
-    where = _unit_where(u)
     refs = {key for _, key in lay.points}
     for p in cal.points:
         if round(p / ctx.resolution) not in refs:
-            raise InputError(f"{where}: no reading at the reference {p:g} {unit} that "
+            raise InputError(f"{_unit_where(u)}: no reading at the reference {p:g} {unit} that "
                              "calibration.points asks for")
     lin = ctx.design.linearisation
     needed = spec.linearisation.order + 1 if lin is not None and lin.mode == "polynomial" \
         else 2
     if len(refs) < needed:
-        raise InputError(f"{where}: {len(refs)} distinct reference values; the fit needs at "
-                         f"least {needed}")
+        raise InputError(f"{_unit_where(u)}: {len(refs)} distinct reference values; the fit "
+                         f"needs at least {needed}")
     tolerance = DISAGREE_PCT_SPAN / 100 * abs(ctx.nominal_b) * ctx.span_range
     for idx in lay.points.values():
         values = [lay.mean[i] for i in idx]
@@ -295,16 +294,16 @@ def _refuse_points(ctx: CalibrationContext, u: UnitReadings, lay: _Layout) -> No
             per_group[g] = per_group.get(g, 0) + 1
         usable = sum(count >= 2 for count in per_group.values())
         if usable < 2:
-            raise InputError(f"{where}: temperature compensation needs readings at two or "
+            raise InputError(f"{_unit_where(u)}: temperature compensation needs readings at two or "
                              f"more temperatures (more than {TEMP_GROUP_C:g} C apart), each "
                              f"with at least two reference values; found {usable}")
     split = lay.split
     if cal.max_hysteresis is not None and not any(up and down for up, down in split):
-        raise InputError(f"{where}: calibration.max_hysteresis is set but no reference has "
-                         "both 'up' and 'down' readings")
+        raise InputError(f"{_unit_where(u)}: calibration.max_hysteresis is set but no "
+                         "reference has both 'up' and 'down' readings")
     if cal.max_repeatability is not None and not any(
             len(up) >= 2 or len(down) >= 2 for up, down in split):
-        raise InputError(f"{where}: calibration.max_repeatability is set but no point is "
+        raise InputError(f"{_unit_where(u)}: calibration.max_repeatability is set but no point is "
                          "repeated (two readings, same reference, temperature and direction)")
 
 
@@ -369,28 +368,27 @@ def _fit(ctx: CalibrationContext, u: UnitReadings, shape: F64) -> _Fit:
                              "references and temperatures")
         beta = np.linalg.lstsq(x, u.raw_mean, rcond=None)[0]
         residual = u.raw_mean - x @ beta
-    b = float(beta[1] if temp is None else beta[2])
-    _refuse_fit(ctx, u, beta, b)
+    fitted: list[float] = beta.tolist()
+    _refuse_fit(ctx, u, fitted)
     if temp is None:
-        return _Fit(float(beta[0]), b, 0.0, 0.0, residual)
-    return _Fit(float(beta[0]), b, float(beta[1]), float(beta[3] / beta[2]), residual)
+        return _Fit(fitted[0], fitted[1], 0.0, 0.0, residual)
+    return _Fit(fitted[0], fitted[2], fitted[1], fitted[3] / fitted[2], residual)
 
 
-def _refuse_fit(ctx: CalibrationContext, u: UnitReadings, beta: NDArray[np.floating],
-                b: float) -> None:
-    """Refuse a fit that is not finite or that no bridge of this spec could give: a zero
-    outside the ADC's code range, or a response over the whole measuring range smaller
-    than the ADC's own noise (nothing was measured) or larger than the code range."""
-    where = _unit_where(u)
-    if not np.isfinite(beta).all():
-        raise InputError(f"{where}: the fit of the readings is not finite")
+def _refuse_fit(ctx: CalibrationContext, u: UnitReadings, beta: list[float]) -> None:
+    """Refuse a fit (zero first, span at index 1, or 2 with temperature) that is not
+    finite or that no bridge of this spec could give: a zero outside the ADC's code range,
+    or a response over the whole measuring range smaller than the ADC's own noise (nothing
+    was measured) or larger than the code range."""
+    if not all(map(math.isfinite, beta)):
+        raise InputError(f"{_unit_where(u)}: the fit of the readings is not finite")
     codes = ctx.code_max - ctx.code_min
     if not ctx.code_min <= beta[0] <= ctx.code_max:
-        raise InputError(f"{where}: the fitted zero {beta[0]:.4g} counts lies outside the "
-                         f"code range {ctx.code_min} .. {ctx.code_max}")
-    response = abs(b) * ctx.span_range
+        raise InputError(f"{_unit_where(u)}: the fitted zero {beta[0]:.4g} counts lies "
+                         f"outside the code range {ctx.code_min} .. {ctx.code_max}")
+    response = abs(beta[1] if len(beta) == 2 else beta[2]) * ctx.span_range
     if not ctx.noise_counts <= response <= codes:
-        raise InputError(f"{where}: the fitted response over the range is {response:.4g} "
+        raise InputError(f"{_unit_where(u)}: the fitted response over the range is {response:.4g} "
                          f"counts, outside what the bridge can give ({ctx.noise_counts:.4g}, "
                          f"the ADC's noise, .. {codes}, the code range; nominal "
                          f"{abs(ctx.nominal_b) * ctx.span_range:.4g}): not a working unit or "
