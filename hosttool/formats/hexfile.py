@@ -63,16 +63,11 @@ RECORD_BYTES = 16
 END_RECORD = ":00000001FF"
 
 
-def _record(address: int, kind: int, data: bytes, digits: str) -> str:
-    """One record ``:LLAAAATTDD..CC`` of ``data`` (``digits``: its upper-case hex), CC the
-    two's complement of the sum of the other bytes."""
-    size = len(data)
-    check = -(size + (address >> 8) + (address & 0xFF) + kind + sum(data)) & 0xFF
-    return f":{size:02X}{address:04X}{kind:02X}{digits}{check:02X}"
-
-
-def _short(address: int, kind: int, data: bytes) -> str:
-    return _record(address, kind, data, data.hex().upper())
+def _record(address: int, kind: int, data: bytes) -> str:
+    """One record ``:LLAAAATTDD..CC``, CC the two's complement of the sum of the other
+    bytes (data records are written the same way, inline, in ``intel_hex``)."""
+    check = -(len(data) + (address >> 8) + (address & 0xFF) + kind + sum(data)) & 0xFF
+    return f":{len(data):02X}{address:04X}{kind:02X}{data.hex().upper()}{check:02X}"
 
 
 def intel_hex(runs: list[tuple[int, bytes]], *, start: dict[str, int] | None = None) -> str:
@@ -88,10 +83,10 @@ def intel_hex(runs: list[tuple[int, bytes]], *, start: dict[str, int] | None = N
     lines = []
     if start:
         if sorted(start) == ["CS", "IP"]:
-            lines.append(_short(0, 3, start["CS"].to_bytes(2, "big")
-                                + start["IP"].to_bytes(2, "big")))
+            lines.append(_record(0, 3, start["CS"].to_bytes(2, "big")
+                                 + start["IP"].to_bytes(2, "big")))
         elif sorted(start) == ["EIP"]:
-            lines.append(_short(0, 5, start["EIP"].to_bytes(4, "big")))
+            lines.append(_record(0, 5, start["EIP"].to_bytes(4, "big")))
         else:
             raise ValueError(f"start address {start}: neither CS and IP nor EIP")
     end = joined[-1][0] + len(joined[-1][1]) if joined else 0
@@ -105,10 +100,11 @@ def intel_hex(runs: list[tuple[int, bytes]], *, start: dict[str, int] | None = N
             at = address + pos
             if end > 0x10000 and at >> 16 != upper:
                 upper = at >> 16
-                lines.append(_short(0, 4, upper.to_bytes(2, "big")))
-            size = min(RECORD_BYTES, 0x10000 - (at & 0xFFFF), len(data) - pos)
-            lines.append(_record(at & 0xFFFF, 0, data[pos:pos + size],
-                                 digits[2 * pos:2 * (pos + size)]))
+                lines.append(_record(0, 4, upper.to_bytes(2, "big")))
+            low = at & 0xFFFF
+            size = min(RECORD_BYTES, 0x10000 - low, len(data) - pos)
+            check = -(size + (low >> 8) + (low & 0xFF) + sum(data[pos:pos + size])) & 0xFF
+            lines.append(f":{size:02X}{low:04X}00{digits[2 * pos:2 * (pos + size)]}{check:02X}")
             pos += size
     lines.append(END_RECORD)
     return "\n".join(lines) + "\n"

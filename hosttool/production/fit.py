@@ -555,9 +555,9 @@ def _criteria(ctx: CalibrationContext, u: UnitReadings, figures: dict[str, float
              temp.max_zero_tc_ppm_fs_per_c, "ppm FS/C", "temperature.max_zero_tc_ppm_fs_per_c"),
             ("span_tc", "span temperature coefficient", figures["span_tc_ppm_per_c"],
              temp.max_span_tc_ppm_per_c, "ppm/C", "temperature.max_span_tc_ppm_per_c")]
-    return tuple(Criterion(key, label, value, limit, unit_, source,
-                           limit is None or (value is not None and abs(value) <= limit))
-                 for key, label, value, limit, unit_, source in rows)
+    return tuple([Criterion(key, label, value, limit, unit_, source,
+                            limit is None or (value is not None and abs(value) <= limit))
+                  for key, label, value, limit, unit_, source in rows])
 
 
 def point_limits(ctx: CalibrationContext, reference: F64) -> F64:
