@@ -329,3 +329,23 @@ def test_an_edited_kernel_file_is_rewritten_not_run(tmp_path: Path) -> None:
     again = chain.compiled_chain(shape, folder)
     assert path.read_bytes() == good
     assert callable(first) and callable(again)
+
+
+def test_sweep_kernel_calls_no_compiled_function_of_another_module() -> None:
+    # numba keys a cached kernel on its own source file alone: a compiled helper of
+    # another module, once edited, would stay stale inside the cached sweep
+    from numba.core.registry import CPUDispatcher
+
+    from hosttool.verify import sweep
+
+    def called(kernel: CPUDispatcher) -> set[str]:
+        names = set()
+        for name in kernel.py_func.__code__.co_names:
+            target = kernel.py_func.__globals__.get(name)
+            if isinstance(target, CPUDispatcher):
+                names.add(f"{target.py_func.__module__}.{name}")
+                names |= called(target)
+        return names
+
+    found = called(sweep._sweep)
+    assert found and all(n.startswith("hosttool.verify.sweep.") for n in found), found

@@ -59,8 +59,6 @@ from hosttool.design.model import (
     P_TREF,
     Floats,
     Ints,
-    clamp32,
-    round_shift,
     static_params,
 )
 from hosttool.design.resolve import LIN_FRAC, Design
@@ -87,6 +85,22 @@ _NO_EXPECTED = np.zeros(1, dtype=np.int32)
 _I_SAT, _I_MONO, _I_FIRST, _I_LAST, _I_MISMATCH, _I_FIRST_MISMATCH = range(6)
 
 
+# The kernel calls no compiled function of another module: numba keys a cached kernel on
+# its own file alone, so an edit of model.py could otherwise leave a stale kernel here.
+
+
+@njit(cache=True, nogil=True)
+def _sat32(v: int) -> int:  # pragma: no cover - compiled
+    """sat32: v clamped to the int32 range."""
+    return min(max(v, INT32_MIN), INT32_MAX)
+
+
+@njit(cache=True, nogil=True)
+def _round_shift(x: int, k: int) -> int:  # pragma: no cover - compiled
+    """(x + 2^(k-1)) >> k, arithmetic; (2^k) >> 1 is the half, 0 for k = 0."""
+    return (x + ((1 << k) >> 1)) >> k
+
+
 # error_model="numpy": no test for a zero divisor in the loop (2^K and the histogram's bin
 # width are never zero); no other operation changes
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -100,7 +114,7 @@ def _sweep(first: int, chunks: int, chunk: int, t: int, ip: Ints, lin: Ints, fp:
     5) and its float64 reference (``model.static_value``'s operations, in its order), in
     blocks of ``_BLOCK`` codes: a block's outputs and errors in one loop with no branch that
     depends on the code (the temperature step's terms computed once for the sweep, clamps
-    as min and max, a rounding shift as (x + 2^(k-1)) >> k with the half 0 for k = 0), so
+    as min and max, a rounding shift as (x + (2^k >> 1)) >> k, the half 0 for k = 0), so
     the compiler can vectorise it; then the block's statistics. ``lin`` is empty without
     linearisation. Returns the largest |error|; fills ``sums`` (each chunk's pairwise sum
     of |error|), ``ints`` (see ``_I_*``) and, when ``per_bin`` > 0, ``bins`` (largest
@@ -117,14 +131,14 @@ def _sweep(first: int, chunks: int, chunk: int, t: int, ip: Ints, lin: Ints, fp:
     z, g, alpha_dt, gain = 0, 0, 0.0, 1.0
     if ip[P_HAS_TC]:
         dt = min(max(t, ip[P_TMIN]), ip[P_TMAX]) - ip[P_TREF]
-        z = round_shift(ip[P_KZ] * dt, ip[P_SZ])
-        g = round_shift(ip[P_KS] * dt, ip[P_SS])
+        z = _round_shift(ip[P_KZ] * dt, ip[P_SZ])
+        g = _round_shift(ip[P_KS] * dt, ip[P_SS])
         alpha_dt = fp[F_ALPHA] * float(dt)
         gain = 1.0 + fp[F_GAMMA] * float(dt)
     guard, offset, mul, shift = ip[P_GUARD], ip[P_OFFSET], ip[P_MUL], ip[P_SHIFT]
-    half = (1 << (shift - 1)) if shift > 0 else 0
+    half = (1 << shift) >> 1
     k = ip[P_LIN_SHIFT]
-    k_half = (1 << (k - 1)) if k > 0 else 0
+    k_half = (1 << k) >> 1
     lin_half = 1 << (LIN_FRAC - 1)
     f_guard, f_offset, f_scale, f_norm = fp[F_GUARD], fp[F_OFFSET], fp[F_SCALE], fp[F_NORM]
     n_lin = len(lin)
@@ -143,10 +157,10 @@ def _sweep(first: int, chunks: int, chunk: int, t: int, ip: Ints, lin: Ints, fp:
             for j in range(_BLOCK):
                 x = first + base + j
                 r = x * (1 << guard) - offset
-                v = clamp32(r)
+                v = _sat32(r)
                 sats += v != r
                 r = (v * mul + half) >> shift
-                s = clamp32(r)
+                s = _sat32(r)
                 sats += s != r
                 ref = (float(x) * f_guard - f_offset) * f_scale
                 if n_lin > 0:
@@ -155,7 +169,7 @@ def _sweep(first: int, chunks: int, chunk: int, t: int, ip: Ints, lin: Ints, fp:
                     for i in range(n_lin - 2, -1, -1):
                         acc = ((acc * w + lin_half) >> LIN_FRAC) + lin[i]
                     r = (acc + k_half) >> k
-                    s = clamp32(r)
+                    s = _sat32(r)
                     sats += s != r
                     wf = ref / f_norm
                     c0 = flin[n_lin - 1] + wf * 0.0
@@ -164,7 +178,7 @@ def _sweep(first: int, chunks: int, chunk: int, t: int, ip: Ints, lin: Ints, fp:
                     ref = c0 * f_norm
                 s1 = s - z
                 r = s1 + ((s1 * g + lin_half) >> LIN_FRAC)
-                s = clamp32(r)
+                s = _sat32(r)
                 sats += s != r
                 ref = min(max((ref - alpha_dt) * gain, float(INT32_MIN)), float(INT32_MAX))
                 outs[j] = s
