@@ -1,5 +1,5 @@
 """``python -m hosttool`` runs the command line."""
 
-from hosttool.cli import main
+from hosttool.cli import run
 
-main(prog_name="hosttool")
+run()

@@ -20,8 +20,11 @@ import click
 
 from hosttool import __version__
 from hosttool.errors import HostToolError
+from hosttool.util.quick_exit import quick_exit
 
 F = TypeVar("F", bound=Callable[..., Any])
+#: "quick": set by a command whose process ``run`` may end without the interpreter's teardown.
+_EXIT = {"quick": False}
 
 
 def _emit_json(data: object) -> None:
@@ -147,6 +150,7 @@ def verify(spec: Path, calibration: Path | None, samples: int, seed: int, engine
                                     engine=engine, as_json=as_json, report=report,
                                     started=started)
     click.echo(text, nl=False)
+    _EXIT["quick"] = True
     sys.exit(0 if verification.passed else 1)
 
 
@@ -469,5 +473,18 @@ def explore(spec: Path, vary: tuple[str, ...], sort: str, jobs: int, m4: bool, a
         _emit_json(out)
 
 
+def run() -> None:
+    """The console entry point (and ``python -m hosttool``): ``main``; after a command that
+    set ``_EXIT["quick"]`` (verify, which loads numba) the process ends at once
+    (util/quick_exit.py). Tests call ``main`` in-process and never end here."""
+    try:
+        main(prog_name="hosttool")
+    except SystemExit as exc:
+        if _EXIT["quick"] and isinstance(exc.code, int):
+            quick_exit(exc.code)
+        raise
+
+
 if __name__ == "__main__":  # pragma: no cover
-    main()
+    run()
+

@@ -8,7 +8,10 @@ test_design_model.py); the bounds come from the design's range analysis.
 from __future__ import annotations
 
 import json
+import os
 import re
+import subprocess
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -190,3 +193,28 @@ def test_calibration_of_another_spec_is_refused(tmp_path: Path) -> None:
     assert result.exit_code == 2
     assert result.stderr.count("\n") == 1 and "Traceback" not in result.stderr
     assert str(cal) in result.stderr and "output.resolution 0.01 -> 0.005" in result.stderr
+
+
+
+def test_verify_process_ends_at_once_with_its_output_and_status() -> None:
+    # python -m hosttool verify ends without the interpreter's teardown (util/quick_exit.py):
+    # the JSON on stdout is whole and the exit status is the verdict's (the coupon fails on
+    # its limit cycles: exit 1)
+    done = subprocess.run([sys.executable, "-m", "hosttool", "verify",
+                           str(EXAMPLES / "fatigue_coupon.toml"), "--json", "--samples",
+                           "20000"], capture_output=True, text=True, timeout=900)
+    assert done.returncode == 1, done.stderr
+    data = json.loads(done.stdout)
+    assert data["passed"] is False and data["static"]["passed"] is True
+
+
+def test_quick_exit_writes_buffered_output_and_runs_exit_handlers() -> None:
+    code = ("import atexit, sys\n"
+            "from hosttool.util.quick_exit import quick_exit\n"
+            "atexit.register(lambda: sys.stderr.write('handler ran'))\n"
+            "sys.stdout.write('buffered')\n"
+            "quick_exit(3)\n")
+    env = {k: v for k, v in os.environ.items() if k != "PYTHONUNBUFFERED"}  # buffered
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          env=env, timeout=60)
+    assert (done.returncode, done.stdout, done.stderr) == (3, "buffered", "handler ran")
