@@ -412,18 +412,17 @@ class _Work:
 
     def chunk(self, units: list[UnitRows]) -> list[Prepared]:
         """Check the rows of these units (at once), then calibrate, image and trace each,
-        and stage each image (its fsyncs in flight while the next units are computed)."""
+        and stage their images (on disk when this returns)."""
         done = []
-        on_disk = []
+        images: dict[str, bytes] = {}
         for unit in self.layout.check(units):
             p = _traced(prepare(self.ctx, unit, self.override), unit, self.register,
                         self.lot_ids)
             if p.image is not None:
-                on_disk.append(self.staging.stage(f"{p.serial}.hex", p.image))
+                images[f"{p.serial}.hex"] = p.image
                 p = replace(p, staged=f"{p.serial}.hex")
             done.append(p)
-        for future in on_disk:
-            future.result()
+        self.staging.stage(images)
         return done
 
 

@@ -1,9 +1,11 @@
 """Files made durable where they are made, published in groups where they are recorded.
 
 A production batch makes each unit's image in a worker process and records it in the main
-one. The worker writes the image into the batch's own *staging folder* inside the output
-folder and fsyncs it there, many fsyncs in flight at once on a pool of threads, while it
-goes on with the next units: the data is on disk before the recording process sees it.
+one. The worker writes the images of each chunk of units into the batch's own *staging
+folder* inside the output folder and fsyncs them there, all in flight at once on a pool of
+threads (issued after the chunk is computed: threads waking up in the middle of the
+computation would fight it for the interpreter lock): the data is on disk before the
+recording process sees it.
 The recording process then renames the images of a group into the output folder and fsyncs
 the folder once (the names are on disk), before the group's rows commit. Only these files
 are flushed: ``os.sync()`` would wait for every pending write of the whole machine.
@@ -22,14 +24,14 @@ import os
 import shutil
 import tempfile
 import time
-from concurrent.futures import Future, ThreadPoolExecutor
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 from hosttool.errors import OutputError
 
 #: Most fsyncs in flight at once in one process (issued together, the file system can
-#: commit them in one journal write).
-FSYNC_THREADS = 32
+#: commit them in one journal write): a whole chunk of the batch's units.
+FSYNC_THREADS = 64
 STAGING_PREFIX = ".hosttool-staging-"
 OWNER = ".owner"
 #: A staging folder without its lock file is another batch's in the making unless older.
@@ -58,20 +60,6 @@ def fsync_folder(folder: Path) -> None:
         raise OutputError(f"{folder}: cannot flush the folder: {exc.strerror}") from None
 
 
-def _write_synced(path: str, data: bytes) -> None:
-    try:
-        fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o666)
-        try:
-            view = memoryview(data)
-            while view:
-                view = view[os.write(fd, view):]
-            os.fsync(fd)
-        finally:
-            os.close(fd)
-    except OSError as exc:
-        raise OutputError(f"{path}: cannot write: {exc.strerror}") from None
-
-
 class Staging:
     """A batch's staging folder inside ``folder``, locked for the batch's life."""
 
@@ -86,10 +74,24 @@ class Staging:
         fcntl.flock(self._owner, fcntl.LOCK_EX)
         self._inside = f"{self.path}{os.sep}"          # names joined as text: many per lot
 
-    def stage(self, name: str, data: bytes) -> Future[None]:
-        """Write ``data`` as ``name`` in the staging folder; the future is done when the
-        file is on disk (fsynced)."""
-        return fsync_pool().submit(_write_synced, self._inside + name, data)
+    def stage(self, files: dict[str, bytes]) -> None:
+        """Write each file (name -> bytes) into the staging folder; when this returns,
+        they are all on disk (their fsyncs issued together on this process's threads)."""
+        fds: list[int] = []
+        try:
+            for name, data in files.items():
+                fds.append(os.open(self._inside + name, os.O_WRONLY | os.O_CREAT | os.O_TRUNC,
+                                   0o666))
+                view = memoryview(data)
+                while view:
+                    view = view[os.write(fds[-1], view):]
+            list(fsync_pool().map(os.fsync, fds))
+        except OSError as exc:
+            raise OutputError(f"{self.path}: cannot write {exc.filename or 'an image'}: "
+                              f"{exc.strerror}") from None
+        finally:
+            for fd in fds:
+                os.close(fd)
 
     def publish(self, name: str, final: str) -> None:
         """Rename the staged file ``name`` to ``final`` (in the output folder; durable once
