@@ -524,6 +524,16 @@ def static_integer(design: Design, codes: ArrayLike, temps_centi: ArrayLike | No
     return run
 
 
+def static_outputs(design: Design, codes: ArrayLike, temps_centi: ArrayLike | None = None,
+                   *, constants: UnitConstants | None = None) -> I64:
+    """The outputs of ``static_integer`` alone, without the per-node figures (a production
+    line's verdict, once per unit)."""
+    x, t = _inputs(design, codes, temps_centi)
+    p = static_params(design, constants=constants)
+    out: I64 = _static_run(x, _NO_TEMPS if t is None else t, t is not None, p.ints, p.lin)[0]
+    return out
+
+
 # ----------------------------------------------------------------------------- float
 
 

@@ -53,7 +53,10 @@ def block_area(design: Design) -> tuple[int, int]:
 
 def padded(design: Design, block: bytes) -> bytes:
     """The block followed by erased bytes up to the area's size."""
-    _, size = block_area(design)
+    return _filled(block, block_area(design)[1])
+
+
+def _filled(block: bytes, size: int) -> bytes:
     return block + bytes([ERASED]) * (size - len(block))
 
 
@@ -118,8 +121,8 @@ def hex_text(image: IntelHex) -> str:
 
 def block_hex(design: Design, block: bytes) -> bytes:
     """The Intel HEX image of the padded block alone, as ASCII bytes (one unit of a lot)."""
-    address, _ = block_area(design)
-    return intel_hex([(address, padded(design, block))]).encode("ascii")
+    address, size = block_area(design)
+    return intel_hex([(address, _filled(block, size))]).encode("ascii")
 
 
 def read_hex(path: Path) -> IntelHex:

@@ -145,14 +145,18 @@ def refused(serial: str, reason: str) -> Prepared:
 
 #: The record's JSON texts of a unit, written as ``json.dumps`` writes them (tests hold them
 #: to it): its constants (canonical: sorted keys, no spaces) and figures (sorted keys) by
-#: encoders made once; each reading and point by a template, its numbers by ``repr`` (what
-#: json writes for a finite float; the reader refuses readings that are not finite).
+#: encoders made once; each criterion, reading and point by a template, its strings by
+#: json's own escaping, its numbers by ``repr`` (what json writes for a finite float; the
+#: reader refuses readings that are not finite).
 _CONSTANTS = json.JSONEncoder(sort_keys=True, separators=(",", ":"))
 _FIGURES = json.JSONEncoder(sort_keys=True)
-_READING = ('{"line": %d, "reference": %r, "temperature_c": %r, "raw_mean_counts": %r, '
-            '"raw_std_counts": %r, "samples": %d, "direction": "%s"}')
-_POINT = ('{"line": %d, "reference": %r, "temperature_c": %r, "direction": "%s", '
-          '"output": %s, "error": %s, "limit": %s}')
+_TEXT = json.encoder.encode_basestring_ascii
+_CRITERION = ('{"key": %s, "label": %s, "value": %s, "limit": %s, "unit": %s, "source": %s, '
+              '"pass": %s}')
+#: A reading's object and a point's both start with its line, reference and temperature.
+_HEAD = '{"line": %d, "reference": %r, "temperature_c": %r, '
+_READING = '"raw_mean_counts": %r, "raw_std_counts": %r, "samples": %d, "direction": "%s"}'
+_POINT = '"direction": "%s", "output": %s, "error": %s, "limit": %s}'
 
 
 def prepare(ctx: CalibrationContext, unit: UnitReadings | RefusedRows,
@@ -178,8 +182,9 @@ def prepare(ctx: CalibrationContext, unit: UnitReadings | RefusedRows,
         return refused(unit.serial, f"{unit.where(0)}: serial {unit.serial}: the tool failed "
                        f"on this unit ({exc.__class__.__name__}: {exc}); please report it "
                        "with the readings")
-    criteria = [{"key": c.key, "label": c.label, "value": c.value, "limit": c.limit,
-                 "unit": c.unit, "source": c.source, "pass": c.passed} for c in result.criteria]
+    criteria = [_CRITERION % (_TEXT(c.key), _TEXT(c.label), _number(c.value),
+                              _number(c.limit), _TEXT(c.unit), _TEXT(c.source),
+                              "true" if c.passed else "false") for c in result.criteria]
     n = unit.reference.size
     if result.output is None:
         output = error = ["null"] * n
@@ -188,29 +193,39 @@ def prepare(ctx: CalibrationContext, unit: UnitReadings | RefusedRows,
         error = list(map(repr, (result.output - unit.reference).tolist()))
     limit = ["null" if v == math.inf else repr(v)
              for v in point_limits(ctx, unit.reference).tolist()]
-    points = [_POINT % (line, ref, temp, "up" if up else "down", output[i], error[i], limit[i])
-              for i, (line, ref, temp, up) in enumerate(zip(
-                  unit.lines.tolist(), unit.reference.tolist(), unit.temperature_c.tolist(),
-                  unit.up.tolist(), strict=True))]
+    heads = _heads(unit)
+    points = [head + _POINT % ("up" if up else "down", out, err, lim) for head, up, out, err, lim
+              in zip(heads, unit.up.tolist(), output, error, limit, strict=True)]
     return Prepared(
         serial=unit.serial, refused="", verdict=result.verdict, reasons=result.reasons,
         cal_time_utc=format_time_utc(cal_time),
         constants=_CONSTANTS.encode(constants_json(result.constants)),
         figures=_FIGURES.encode(result.figures), image=image,
-        criteria=json.dumps(criteria), points="[" + ", ".join(points) + "]",
-        readings=readings_json(unit))
+        criteria="[" + ", ".join(criteria) + "]", points="[" + ", ".join(points) + "]",
+        readings=readings_json(unit, heads))
 
 
-def readings_json(unit: UnitReadings) -> str:
+def _number(value: float | None) -> str:
+    """A number (or None) as json.dumps writes it."""
+    if type(value) is float and math.isfinite(value):
+        return float.__repr__(value)
+    return json.dumps(value)
+
+
+def _heads(unit: UnitReadings) -> list[str]:
+    """The start of each reading's object: its line, reference and temperature."""
+    return [_HEAD % row for row in zip(unit.lines.tolist(), unit.reference.tolist(),
+                                       unit.temperature_c.tolist(), strict=True)]
+
+
+def readings_json(unit: UnitReadings, heads: list[str] | None = None) -> str:
     """The unit's readings as read (the record keeps them), in file order: the JSON text of
     a list of objects (line, reference, temperature_c, raw_mean_counts, raw_std_counts,
-    samples, direction)."""
-    rows = zip(unit.lines.tolist(), unit.reference.tolist(), unit.temperature_c.tolist(),
-               unit.raw_mean.tolist(), unit.raw_std.tolist(), unit.samples.tolist(),
-               unit.up.tolist(), strict=True)
-    return "[" + ", ".join([_READING % (line, ref, temp, mean, std, samples,
-                                        "up" if up else "down")
-                            for line, ref, temp, mean, std, samples, up in rows]) + "]"
+    samples, direction); ``heads``: ``_heads(unit)`` when the caller has them already."""
+    rows = zip(_heads(unit) if heads is None else heads, unit.raw_mean.tolist(),
+               unit.raw_std.tolist(), unit.samples.tolist(), unit.up.tolist(), strict=True)
+    return "[" + ", ".join([head + _READING % (mean, std, samples, "up" if up else "down")
+                            for head, mean, std, samples, up in rows]) + "]"
 
 
 def _traced(p: Prepared, unit: UnitReadings | RefusedRows,

@@ -13,7 +13,7 @@ squares (numpy.linalg.lstsq) over every reading, in [1, u] or [1, dT, u, u dT]. 
 w = s / 2^K to what the firmware must output. Every constant is rounded into the design's
 format and checked (``Design.check_in_force``: what ``Design.with_constants`` refuses);
 the verdict comes from the unit's readings run through the bit-exact static path
-(``model.static_integer``) with those constants: what the firmware will output.
+(``model.static_outputs``) with those constants: what the firmware will output.
 
 A production line runs this once per unit, at a dozen readings each, where plain Python
 beats numpy's cost per call: the checks and figures work on lists. The fit itself stays
@@ -39,7 +39,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from hosttool import __version__
-from hosttool.design.model import static_integer
+from hosttool.design.model import static_outputs
 from hosttool.design.resolve import LIN_FRAC, Design, UnitConstants
 from hosttool.errors import DesignError, InputError
 from hosttool.formats.calblock import BlockFormat
@@ -89,9 +89,9 @@ class Criterion(NamedTuple):
     passed: bool
 
 
-@dataclass(frozen=True)
-class Rounding:
-    """What rounding one constant into its format adds to the output, worst case."""
+class Rounding(NamedTuple):
+    """What rounding one constant into its format adds to the output, worst case (a named
+    tuple, as ``Criterion``)."""
 
     constant: str
     integer: int
@@ -597,7 +597,7 @@ def calibrate_unit(ctx: CalibrationContext, u: UnitReadings, *,
     else:
         codes = np.rint(u.raw_mean).astype(np.int64)
         temps = np.rint(u.temperature_c * 100).astype(np.int64)
-        firmware = static_integer(ctx.design, codes, temps, constants=constants).output
+        firmware = static_outputs(ctx.design, codes, temps, constants=constants)
         output = np.multiply(firmware, ctx.resolution, dtype=np.float64)
         error = output - u.reference
     figures = _figures(ctx, fit, lay, u, error)
