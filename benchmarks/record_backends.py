@@ -27,7 +27,7 @@ from pathlib import Path
 import numpy as np
 
 from hosttool.design.resolve import make_design
-from hosttool.production.batch import run_batch
+from hosttool.production.batch import GROUP, run_batch
 from hosttool.production.synthetic_lot import lot_csv, random_truth
 from hosttool.spec.schema import load_spec
 
@@ -99,7 +99,7 @@ def main() -> None:
                                 str(server / "data"), "-m", "fast", "-w", "stop"],
                                check=False, capture_output=True)
             shutil.rmtree(server, ignore_errors=True)
-    print(f"{args.units} units, one process, 32 units per transaction")
+    print(f"{args.units} units, one process, {GROUP} units per transaction")
     print(f"  SQLite      {lite:6.2f} s  {args.units / lite:7.0f} units/s")
     print(f"  PostgreSQL  {pg:6.2f} s  {args.units / pg:7.0f} units/s  "
           f"({pg / lite:.2f} x the SQLite time)")
