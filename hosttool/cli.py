@@ -333,6 +333,7 @@ def batch(spec: Path, readings: Path, out: Path, db: str | None, station: str | 
         _emit_json(batch_json(summary, readings=readings.name, out=out))
     else:
         click.echo(batch_text(summary, readings=readings.name, out=out), nl=False)
+    _EXIT["quick"] = True           # images and record are on disk and closed: see run()
     sys.exit(summary.exit_code)
 
 
@@ -475,7 +476,7 @@ def explore(spec: Path, vary: tuple[str, ...], sort: str, jobs: int, m4: bool, a
 
 def run() -> None:
     """The console entry point (and ``python -m hosttool``): ``main``; after a command that
-    set ``_EXIT["quick"]`` (verify, which loads numba) the process ends at once
+    set ``_EXIT["quick"]`` (verify and batch, which load numba) the process ends at once
     (util/quick_exit.py). Tests call ``main`` in-process and never end here."""
     try:
         main(prog_name="hosttool")
