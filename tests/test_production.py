@@ -77,10 +77,17 @@ def _essence(out: Path) -> tuple[set[tuple[object, ...]], dict[str, bytes]]:
     return rows, files
 
 
-def _made(out: Path) -> int:
-    """Images a batch has made so far: published into ``out``, or on disk in a staging
-    folder of a batch at work (util/staging.py)."""
-    return sum(1 for _ in out.glob("*.hex")) + sum(1 for _ in out.glob(".hosttool-staging-*/*"))
+def _made(out: Path, since: float) -> int:
+    """Images a batch started at ``since`` (time.time()) has made so far: published into
+    ``out`` (by any run), or on disk in a staging folder (util/staging.py) since then (a
+    killed run's staging folder stays until the next batch clears it)."""
+    staged = 0
+    for path in out.glob(".hosttool-staging-*/*"):
+        try:
+            staged += path.stat().st_mtime >= since
+        except FileNotFoundError:       # published or cleared meanwhile
+            pass
+    return sum(1 for _ in out.glob("*.hex")) + staged
 
 
 def _consistent(out: Path) -> int:
@@ -206,11 +213,12 @@ def test_kill_minus_9_at_random_points_then_resume(tmp_path: Path) -> None:
     rng = random.Random(20250304)
     kills = 0
     for _ in range(5):
-        existing = _made(out)
+        existing = sum(1 for _ in out.glob("*.hex"))     # published (recorded or not)
         # somewhere in the first half of what is left, so the run cannot finish first
         target = existing + rng.randrange(1, max(2, (319 - existing) // 2))
+        started = time.time()
         proc = _start(readings, out)
-        while proc.poll() is None and _made(out) < target:
+        while proc.poll() is None and _made(out, started) < target:
             time.sleep(0.001)
         time.sleep(rng.uniform(0.0, 0.01))
         if proc.poll() is None:

@@ -143,10 +143,11 @@ def test_kill_minus_9_mid_lot_then_rerun_completes(tmp_path: Path, postgres_uri:
     rng = random.Random(20261202)
     kills = 0
     for _ in range(4):
-        existing = _made(out)
+        existing = sum(1 for _ in out.glob("*.hex"))     # published (recorded or not)
         target = existing + rng.randrange(1, max(2, (319 - existing) // 2))
+        started = time.time()
         proc = _start(readings, out, "--db", postgres_uri, "--station", "K")
-        while proc.poll() is None and _made(out) < target:
+        while proc.poll() is None and _made(out, started) < target:
             time.sleep(0.001)
         time.sleep(rng.uniform(0.0, 0.01))
         if proc.poll() is None:

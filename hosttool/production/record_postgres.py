@@ -104,9 +104,11 @@ class PostgresRecord:
                               f"{str(exc).strip().splitlines()[0]}") from None
 
     def lock(self, serials: Sequence[str]) -> None:
-        """Hold each serial (advisory lock, sorted order) until the group commits."""
-        for serial in sorted(set(serials)):
-            self.db.execute("SELECT pg_advisory_xact_lock(hashtextextended(%s, 0))", (serial,))
+        """Hold each serial (advisory lock, sorted order) until the group commits: one
+        statement per serial, executed in order, sent together (psycopg's executemany)."""
+        with self.db.cursor() as cursor:
+            cursor.executemany("SELECT pg_advisory_xact_lock(hashtextextended(%s, 0))",
+                               [(serial,) for serial in sorted(set(serials))])
 
     def currents(self, serials: Sequence[str]) -> dict[str, Row]:
         """The current calibration of each of these serials that has one."""
