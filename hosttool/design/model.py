@@ -360,14 +360,9 @@ def _iir_reference(b: F64, a: F64, x: F64) -> F64:  # pragma: no cover - compile
 
 def _inputs(design: Design, codes: ArrayLike, temps_centi: ArrayLike | None
             ) -> tuple[I64, I64 | None]:
-    x = np.ascontiguousarray(codes, dtype=np.int64)
-    if x.ndim != 1 or (x.size and (x.min() < design.code_min or x.max() > design.code_max)):
+    x, t = _record(design, codes, temps_centi)
+    if x.size and (x.min() < design.code_min or x.max() > design.code_max):
         raise ValueError(f"codes must be a 1-D array of {design.spec.adc.bits}-bit values")
-    if temps_centi is None:
-        return x, None
-    t = np.ascontiguousarray(temps_centi, dtype=np.int64)
-    if t.shape != x.shape:
-        raise ValueError("temperatures must pair one to one with codes")
     return x, t
 
 
