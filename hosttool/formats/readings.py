@@ -254,7 +254,11 @@ class ReadingsLayout:
         refused column in the order of ``_checks``)."""
         lines = [n for u in units for n in u.lines]
         rows = [r for u in units for r in u.cells(self.source)]
-        checks, bad_rows = _check_rows(rows, self)
+        checks = _checks({name: [r[i] for r in rows] for name, i in self.index.items()},
+                         self.rules, "time_utc" in self.index)
+        bad_rows = np.zeros(len(rows), dtype=bool)
+        for check in checks:
+            bad_rows |= check.bad
         cols = {check.name: check.values for check in checks}
         line_numbers = np.array(lines, dtype=np.int64)
         has_time = "time_utc" in self.index
@@ -282,17 +286,6 @@ class ReadingsLayout:
                     if standards is not None else ()))
             first = stop
         return out
-
-
-def _check_rows(rows: list[list[str]], layout: ReadingsLayout
-                ) -> tuple[list[_Check], NDArray[np.bool_]]:
-    """Every check of these rows, each column at once, and the rows any of them refuses."""
-    columns = {name: [r[i] for r in rows] for name, i in layout.index.items()}
-    checks = _checks(columns, layout.rules, "time_utc" in layout.index)
-    bad_rows = np.zeros(len(rows), dtype=bool)
-    for check in checks:
-        bad_rows |= check.bad
-    return checks, bad_rows
 
 
 def _problem(checks: list[_Check], lines: list[int], i: int, source: str) -> str:

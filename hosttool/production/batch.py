@@ -434,8 +434,9 @@ class _Work:
             p = _traced(prepare(self.ctx, unit, self.override), unit, self.register,
                         self.lot_ids)
             if p.image is not None:
-                images[f"{p.serial}.hex"] = p.image
-                p = replace(p, staged=f"{p.serial}.hex")
+                name = f"{p.serial}.hex"
+                images[name] = p.image
+                p = replace(p, staged=name)
             done.append(p)
         self.staging.stage(images)
         return done

@@ -34,6 +34,11 @@ _EPOCH_DAY = 719_163
 FORMS = "YYYY-MM-DDThh:mm:ssZ or YYYY-MM-DDThh:mm:ss+00:00"
 
 
+def _seconds(day: int, hour: int, minute: int, second: int) -> int:
+    """Seconds since 1970 of a time of day on day ``day`` (0: 1970-01-01)."""
+    return day * 86_400 + hour * 3_600 + minute * 60 + second
+
+
 def parse_time_utc(text: str, where: str) -> int:
     """ISO 8601 UTC text (one of the two forms above) to whole seconds since 1970."""
     match = TIME_RE.fullmatch(text.strip())
@@ -45,7 +50,7 @@ def parse_time_utc(text: str, where: str) -> int:
         stamp = datetime(year, month, day, hour, minute, second, tzinfo=UTC)
     except ValueError as exc:
         raise InputError(f"{where}: {shown(text)} is not a valid time: {exc}") from None
-    seconds = (stamp.toordinal() - _EPOCH_DAY) * 86_400 + hour * 3_600 + minute * 60 + second
+    seconds = _seconds(stamp.toordinal() - _EPOCH_DAY, hour, minute, second)
     check_time_range(seconds, where)
     return seconds
 
@@ -70,7 +75,7 @@ def parse_times_utc(texts: Sequence[str]) -> tuple[list[int], dict[int, str]]:
                     days[day_text] = -1          # refused below, with the reason
             day = days[day_text]
             if day >= 0 and hour < 24 and minute < 60 and second < 60:
-                value = day * 86_400 + hour * 3_600 + minute * 60 + second
+                value = _seconds(day, hour, minute, second)
                 if value <= TIME_MAX:
                     seconds.append(value)
                     continue
