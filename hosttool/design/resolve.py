@@ -11,15 +11,23 @@ from __future__ import annotations
 
 import dataclasses
 import math
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
+from numpy.typing import NDArray
 
 from hosttool.design.budget import Budget, compute_budget, signal_band
 from hosttool.design.filters import Stage, design_chain
 from hosttool.design.fixedpoint import INT32_MAX, frac_bits_for, quantise
-from hosttool.design.headroom import CascadeAnalysis, NodeBound, analyse_cascade, node_bounds
+from hosttool.design.headroom import (
+    INT64_LIMIT,
+    CascadeAnalysis,
+    NodeBound,
+    analyse_cascade,
+    node_bounds,
+)
 from hosttool.design.output import OutputMeaning, output_meaning
 from hosttool.design.response import ChainReport, analyse_chain
 from hosttool.errors import DesignError
@@ -46,6 +54,52 @@ class UnitConstants:
     lin: tuple[int, ...]        # C_0 .. C_n in Q30 (empty without linearisation)
     tc_zero: int                # Kz (output LSB per 0.01 C, shift Sz)
     tc_span: int                # Ks (Q30 gain per 0.01 C, shift Ss)
+
+
+I64 = NDArray[np.int64]
+F64 = NDArray[np.float64]
+Bools = NDArray[np.bool_]
+
+#: Bound of a constant's magnitude in a ``ConstantsStack``: above every limit the checks
+#: compare with (each at most 2^31 - 1), so clipping to it changes no check's outcome.
+STACK_CLIP = 1 << 31
+
+
+@dataclass(frozen=True)
+class ConstantsStack:
+    """The constants of U units as int64 arrays over the unit axis (the checks and the
+    static path of a chunk of units at once). A value beyond +-2^31 is clipped to it: its
+    unit is refused all the same, and refused units' values are never run."""
+
+    offset: I64                 # (U,) counts * 2^G
+    scale_mul: I64              # (U,) M
+    lin: I64                    # (U, k) C_0 .. C_n, Q30; zeros where a unit has not k
+    lin_given: I64              # (U,) how many coefficients each unit gives
+    tc_zero: I64                # (U,) Kz
+    tc_span: I64                # (U,) Ks
+
+    @classmethod
+    def of(cls, constants: Sequence[UnitConstants], k: int) -> ConstantsStack:
+        """The stack of ``constants``, with ``k`` linearisation coefficients per row."""
+        units = len(constants)
+        fields = _clipped([[c.offset for c in constants], [c.scale_mul for c in constants],
+                           [c.tc_zero for c in constants], [c.tc_span for c in constants],
+                           [len(c.lin) for c in constants]], (5, units))
+        lin = _clipped([c.lin if len(c.lin) == k else (0,) * k for c in constants],
+                       (units, k))
+        return cls(offset=fields[0], scale_mul=fields[1], tc_zero=fields[2],
+                   tc_span=fields[3], lin_given=fields[4], lin=lin)
+
+
+def _clipped(rows: Sequence[Sequence[int]], shape: tuple[int, int]) -> I64:
+    """``rows`` as an int64 array of ``shape``, each value clipped to +-STACK_CLIP."""
+    try:
+        a = np.array(rows, dtype=np.int64).reshape(shape)
+    except OverflowError:           # a value beyond int64: clipped in Python integers first
+        a = np.array([[min(max(v, -STACK_CLIP), STACK_CLIP) for v in row] for row in rows],
+                     dtype=np.int64).reshape(shape)
+    np.minimum(a, STACK_CLIP, out=a)            # (np.clip: several times slower here)
+    return np.maximum(a, -STACK_CLIP, out=a)
 
 
 @dataclass(frozen=True)
@@ -213,8 +267,21 @@ class Design:
     def check_in_force(self, constants: UnitConstants) -> None:
         """Refuse (DesignError) the constants ``with_constants`` refuses, building nothing:
         the check a production line runs per unit before the static path."""
-        _checked_static_nodes(self.spec, self.chain_bound, self.decimation, self.guard_bits,
-                              self.scale, self.linearisation, self.temperature, constants)
+        reason = self.check_in_force_many([constants])[0]
+        if reason is not None:
+            raise DesignError(reason)
+
+    def check_in_force_many(self, constants: Sequence[UnitConstants]) -> list[str | None]:
+        """``check_in_force`` of each unit of a stack at once: per unit None (in force) or
+        the text of the DesignError that ``check_in_force`` raises for it."""
+        stack = ConstantsStack.of(constants, self.lin_count)
+        return _in_force(self.spec, self.chain_bound, self.guard_bits, self.scale,
+                         self.linearisation, self.temperature, constants, stack)[0]
+
+    @property
+    def lin_count(self) -> int:
+        """How many linearisation coefficients a unit's constants carry."""
+        return _count(self.linearisation)
 
     def with_constants(self, constants: UnitConstants) -> Design:
         """The same design carrying one unit's constants (bounds recomputed for them).
@@ -320,6 +387,11 @@ def _nominal(spec: Spec, bridge: Bridge, converter: Converter, g: int, scale: Sc
         tc_zero=tc_zero, tc_span=tc_span)
 
 
+def _count(lin: LinPolynomial | None) -> int:
+    """How many linearisation coefficients the constants of a design with ``lin`` carry."""
+    return 0 if lin is None else len(lin.coeffs)
+
+
 def offset_limit(bits: int, g: int) -> int:
     """Largest |offset| accepted, counts * 2^G: the ADC's range."""
     return 1 << (bits - 1 + g)
@@ -328,25 +400,45 @@ def offset_limit(bits: int, g: int) -> int:
 def check_constants(c: UnitConstants, *, bits: int, g: int, scale: Scale,
                     lin: LinPolynomial | None, temp: TempComp | None, source: str) -> None:
     """Refuse per-unit constants outside the formats the range proof assumed."""
-    if abs(c.offset) > offset_limit(bits, g):
-        raise DesignError(f"{source}: zero offset {c.offset / 2 ** g:.1f} counts lies outside "
-                          "the ADC range")
-    if abs(c.scale_mul) > scale.multiplier_limit:
-        raise DesignError(f"{source}: span multiplier {c.scale_mul} is beyond the span "
-                          "tolerance the design's format holds (calibration.span_tolerance_pct)")
-    if len(c.lin) != (len(lin.coeffs) if lin is not None else 0):
-        raise DesignError(f"{source}: {len(c.lin)} linearisation coefficients given, the "
-                          f"design has {len(lin.coeffs) if lin is not None else 'none'}")
-    if lin is not None and (sum(abs(x) for x in c.lin) >= LIN_SUM_LIMIT
-                            or max(abs(x) for x in c.lin) > INT32_MAX):
-        raise DesignError(f"{source}: linearisation coefficients too large for Q1.{LIN_FRAC}")
-    if temp is None and (c.tc_zero or c.tc_span):
-        raise DesignError(f"{source}: temperature coefficients given, the design has no "
-                          "temperature compensation")
-    if temp is not None:
-        if abs(c.tc_zero) > INT32_MAX or abs(c.tc_span) > INT32_MAX:
-            raise DesignError(f"{source}: a temperature coefficient exceeds its format")
+    stack = ConstantsStack.of([c], _count(lin))
+    rules = _format_rules([c], stack, bits=bits, g=g, scale=scale, lin=lin, temp=temp)
+    reason = _refusals(rules, 1, source)[0]
+    if reason is not None:
+        raise DesignError(reason)
 
+
+#: A check of a stack: which units it refuses, and the text of its refusal of unit i.
+Rule = tuple[Bools, Callable[[int], str]]
+
+
+def _format_rules(constants: Sequence[UnitConstants], stack: ConstantsStack, *, bits: int,
+                  g: int, scale: Scale, lin: LinPolynomial | None,
+                  temp: TempComp | None) -> list[Rule]:
+    """The formats' checks of ``constants`` (as ``stack``), in order; a refusal's text
+    names the unit's own values (unclipped)."""
+    count = _count(lin)
+    rules: list[Rule] = [
+        (np.abs(stack.offset) > offset_limit(bits, g),
+         lambda i: f"zero offset {constants[i].offset / 2 ** g:.1f} counts lies outside "
+                   "the ADC range"),
+        (np.abs(stack.scale_mul) > scale.multiplier_limit,
+         lambda i: f"span multiplier {constants[i].scale_mul} is beyond the span tolerance "
+                   "the design's format holds (calibration.span_tolerance_pct)"),
+        (stack.lin_given != count,
+         lambda i: f"{len(constants[i].lin)} linearisation coefficients given, the design "
+                   f"has {count if lin is not None else 'none'}")]
+    if lin is not None:
+        size = np.abs(stack.lin)
+        rules.append(((size.sum(axis=1) >= LIN_SUM_LIMIT) | (size.max(axis=1) > INT32_MAX),
+                      lambda _: f"linearisation coefficients too large for Q1.{LIN_FRAC}"))
+    if temp is None:
+        rules.append(((stack.tc_zero != 0) | (stack.tc_span != 0),
+                      lambda _: "temperature coefficients given, the design has no "
+                                "temperature compensation"))
+    else:
+        rules.append(((np.abs(stack.tc_zero) > INT32_MAX) | (np.abs(stack.tc_span) > INT32_MAX),
+                      lambda _: "a temperature coefficient exceeds its format"))
+    return rules
 
 def _errors(spec: Spec, cascade: CascadeAnalysis, scale: Scale, c: UnitConstants,
             lin: LinPolynomial | None, temp: TempComp | None, scaled_bound: float
@@ -451,48 +543,79 @@ def _checked_static_nodes(spec: Spec, chain_bound: float, decimation: int, g: in
                           c: UnitConstants) -> tuple[NodeBound, ...]:
     """The static path's nodes for constants ``c``, after checking them: inside their
     formats, and no 64-bit product that could overflow (DesignError otherwise)."""
-    check_constants(c, bits=spec.adc.bits, g=g, scale=scale, lin=lin, temp=temp,
-                    source=spec.source)
-    static = _static_nodes(chain_bound, scale, lin, temp, c,
-                           spec.adc.data_rate_sps / decimation)
-    for node in static:
-        if node.word == 64 and node.headroom_bits < 0:
-            raise DesignError(f"{spec.source}: {node.name} can reach {node.bound:.4g}, beyond "
-                              "int64: narrow the temperature range or the coefficient limits")
-    return static
+    stack = ConstantsStack.of([c], _count(lin))
+    reasons, bounds = _in_force(spec, chain_bound, g, scale, lin, temp, [c], stack)
+    if reasons[0] is not None:
+        raise DesignError(reasons[0])
+    rate_hz = spec.adc.data_rate_sps / decimation
+    return tuple(NodeBound(name, 0.0, 0.0, float(bound[0]), word, rate_hz)
+                 for name, word, bound in bounds)
 
 
-def _static_nodes(chain_bound: float, scale: Scale, lin: LinPolynomial | None,
-                  temp: TempComp | None, c: UnitConstants, rate_hz: float
-                  ) -> tuple[NodeBound, ...]:
-    """Worst cases of the scale, linearisation and temperature steps (output LSB, or the
-    int64 products before their shifts), for chain words bounded by ``chain_bound``.
+def _in_force(spec: Spec, chain_bound: float, g: int, scale: Scale,
+              lin: LinPolynomial | None, temp: TempComp | None,
+              constants: Sequence[UnitConstants], stack: ConstantsStack
+              ) -> tuple[list[str | None], list[tuple[str, int, F64]]]:
+    """Per unit of ``constants`` (as ``stack``) None when in force, else the text of its
+    refusal: the first of the formats' checks it fails, else the first 64-bit product of
+    the static path that could overflow. Also the static path's node bounds per unit."""
+    rules = _format_rules(constants, stack, bits=spec.adc.bits, g=g, scale=scale, lin=lin,
+                          temp=temp)
+    bounds = _static_bounds(chain_bound, scale, lin, temp, stack)
+    for name, word, bound in bounds:
+        if word == 64:      # beyond int64: NodeBound.headroom_bits < 0
+            rules.append((bound > float(INT64_LIMIT), _overflow_text(name, bound)))
+    return _refusals(rules, len(constants), spec.source), bounds
+
+
+def _overflow_text(name: str, bound: F64) -> Callable[[int], str]:
+    """The refusal of unit i whose node ``name`` can reach ``bound[i]`` beyond int64."""
+    return lambda i: (f"{name} can reach {float(bound[i]):.4g}, beyond int64: narrow the "
+                      "temperature range or the coefficient limits")
+
+
+def _refusals(rules: list[Rule], units: int, source: str) -> list[str | None]:
+    """Per unit the text of the first rule that refuses it (``source: text``), else None."""
+    reasons: list[str | None] = [None] * units
+    refused = np.array([r for r, _ in rules], dtype=bool).reshape(len(rules), units)
+    if refused.any():
+        first = refused.argmax(axis=0)          # the first rule that refuses each unit
+        for i in np.flatnonzero(refused.any(axis=0)).tolist():
+            reasons[i] = f"{source}: {rules[first[i]][1](i)}"
+    return reasons
+
+
+def _static_bounds(chain_bound: float, scale: Scale, lin: LinPolynomial | None,
+                   temp: TempComp | None, stack: ConstantsStack
+                   ) -> list[tuple[str, int, F64]]:
+    """(name, word, worst case per unit) of the scale, linearisation and temperature steps
+    (output LSB, or the int64 products before their shifts), for chain words bounded by
+    ``chain_bound``.
 
     The span multiplier and the temperature coefficients are taken at the widest value
     their formats accept (or the unit's, if wider), so the proof holds for every unit that
     calibration can produce, not only for the constants in force.
     """
-    m = float(max(abs(c.scale_mul), scale.multiplier_limit))
-    nodes = [NodeBound("scale.product", 0.0, 0.0, chain_bound * m + 2.0 ** (scale.shift - 1),
-                       64, rate_hz)]
+    m = np.maximum(np.abs(stack.scale_mul), scale.multiplier_limit).astype(np.float64)
+    nodes = [("scale.product", 64, chain_bound * m + 2.0 ** (scale.shift - 1))]
     bound = chain_bound * m / 2.0 ** scale.shift + 0.5
-    nodes.append(NodeBound("scale", 0.0, 0.0, bound, 32, rate_hz))
+    nodes.append(("scale", 32, bound))
     if lin is not None:
-        acc = float(sum(abs(x) for x in c.lin))
-        nodes.append(NodeBound("linearisation.product", 0.0, 0.0,
-                               acc * 2.0 ** LIN_FRAC + 2.0 ** (LIN_FRAC - 1), 64, rate_hz))
+        acc = np.abs(stack.lin).sum(axis=1).astype(np.float64)
+        nodes.append(("linearisation.product", 64,
+                      acc * 2.0 ** LIN_FRAC + 2.0 ** (LIN_FRAC - 1)))
         bound = acc / 2.0 ** LIN_FRAC * 2.0 ** lin.norm_shift + 0.5
-        nodes.append(NodeBound("linearisation", 0.0, 0.0, bound, 32, rate_hz))
+        nodes.append(("linearisation", 32, bound))
     if temp is not None:
-        kz = max(abs(temp.realised_zero(c.tc_zero)), temp.zero_range)
-        ks = max(abs(temp.realised_span(c.tc_span)), temp.span_range) * 2.0 ** LIN_FRAC
-        s1 = min(bound, INT32_MAX + 1.0) + kz * temp.dt_max + 0.5
+        # Kz / 2^Sz and Ks / 2^Ss exactly: a power of two times an integer below 2^32
+        kz = np.maximum(np.abs(stack.tc_zero) * temp.realised_zero(1), temp.zero_range)
+        ks = np.maximum(np.abs(stack.tc_span) * temp.realised_span(1),
+                        temp.span_range) * 2.0 ** LIN_FRAC
+        s1 = np.minimum(bound, INT32_MAX + 1.0) + kz * temp.dt_max + 0.5
         g = ks * temp.dt_max + 0.5
-        nodes.append(NodeBound("temperature.product", 0.0, 0.0,
-                               s1 * g + 2.0 ** (LIN_FRAC - 1), 64, rate_hz))
-        nodes.append(NodeBound("temperature", 0.0, 0.0, s1 * (1 + g / 2.0 ** LIN_FRAC) + 0.5,
-                               32, rate_hz))
-    return tuple(nodes)
+        nodes.append(("temperature.product", 64, s1 * g + 2.0 ** (LIN_FRAC - 1)))
+        nodes.append(("temperature", 32, s1 * (1 + g / 2.0 ** LIN_FRAC) + 0.5))
+    return nodes
 
 
 def make_design(spec: Spec, constants: UnitConstants | None = None) -> Design:
