@@ -24,7 +24,7 @@ not imported here: verifying a cached design needs no filter design.
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -36,7 +36,7 @@ from hosttool.design.chain import compiled_chain
 from hosttool.design.compiled import njit
 from hosttool.design.filters import FirStage
 from hosttool.design.fixedpoint import INT32_MAX, INT32_MIN
-from hosttool.design.resolve import LIN_FRAC, Design, UnitConstants
+from hosttool.design.resolve import LIN_FRAC, ConstantsStack, Design, UnitConstants
 from hosttool.errors import HostToolError
 
 I64 = NDArray[np.int64]
@@ -48,6 +48,10 @@ Floats = tuple[float, ...]
 P_GUARD, P_OFFSET, P_MUL, P_SHIFT, P_HAS_LIN, P_LIN_SHIFT = 0, 1, 2, 3, 4, 5
 P_HAS_TC, P_TREF, P_TMIN, P_TMAX, P_KZ, P_SZ, P_KS, P_SS = 6, 7, 8, 9, 10, 11, 12, 13
 P_CODE_LOW, P_CODE_HIGH = 14, 15
+# The integer parameters that are a unit's constants (field of UnitConstants and of
+# ConstantsStack), the temperature coefficients only with temperature compensation.
+UNIT_INTS = ((P_OFFSET, "offset"), (P_MUL, "scale_mul"))
+UNIT_TC_INTS = ((P_KZ, "tc_zero"), (P_KS, "tc_span"))
 # Float parameters of the static reference (StaticParams.floats), by index.
 F_GUARD, F_OFFSET, F_SCALE, F_NORM, F_ALPHA, F_GAMMA = 0, 1, 2, 3, 4, 5
 # Cascade blocks: one per FIR stage or biquad section.
@@ -112,8 +116,9 @@ def static_params(design: Design, *, ideal: bool = False,
     ints = [0] * 16
     ints[P_CODE_LOW], ints[P_CODE_HIGH] = design.code_min, design.code_max
     floats = [0.0] * 6
-    ints[P_GUARD], ints[P_OFFSET] = design.guard_bits, c.offset
-    ints[P_MUL], ints[P_SHIFT] = c.scale_mul, design.scale.shift
+    ints[P_GUARD], ints[P_SHIFT] = design.guard_bits, design.scale.shift
+    for i, name in UNIT_INTS + (UNIT_TC_INTS if tc is not None else ()):
+        ints[i] = getattr(c, name)
     floats[F_GUARD], floats[F_OFFSET] = 2.0 ** design.guard_bits, float(c.offset)
     floats[F_SCALE] = design.scale.ideal if ideal else design.scale.realised(c.scale_mul)
     lin_int: tuple[int, ...] = (0,)
@@ -127,8 +132,7 @@ def static_params(design: Design, *, ideal: bool = False,
     if tc is not None:
         ints[P_HAS_TC], ints[P_TREF] = 1, tc.reference_centi
         ints[P_TMIN], ints[P_TMAX] = tc.min_centi, tc.max_centi
-        ints[P_KZ], ints[P_SZ], ints[P_KS], ints[P_SS] = (c.tc_zero, tc.zero_shift,
-                                                          c.tc_span, tc.span_shift)
+        ints[P_SZ], ints[P_SS] = tc.zero_shift, tc.span_shift
         floats[F_ALPHA] = tc.realised_zero(c.tc_zero)
         floats[F_GAMMA] = tc.realised_span(c.tc_span)
     return StaticParams(tuple(map(int, ints)), lin_int, tuple(map(float, floats)), flin)
@@ -250,6 +254,20 @@ def _static_run(x: I64, t: I64, has_t: bool, ip: Ints,
 
 
 @njit(cache=True, nogil=True)
+def _static_many(x: I64, t: I64, has_t: bool, ip: I64,
+                 lin: I64) -> I64:  # pragma: no cover - compiled
+    """Offset and static path of a stack of units: row u of the codes ``x`` (and of ``t``)
+    with row u of the parameters ``ip`` (indices ``P_*``) and of ``lin``; outputs alone."""
+    out = np.empty(x.shape, dtype=np.int64)
+    for u in range(x.shape[0]):
+        p, c = ip[u], lin[u]
+        for n in range(x.shape[1]):
+            v = clamp32(offset_word(x[u, n], p))
+            out[u, n] = static_word(v, t[u, n] if has_t else p[P_TREF], p, c)[0]
+    return out
+
+
+@njit(cache=True, nogil=True)
 def _chain_run(x: I64, t: I64, has_t: bool, ip: Ints, lin: Ints, kinds: I64, blocks: I64,
                taps: I64, decimation: int
                ) -> tuple[I64, I64, I64, NDArray[np.int8]]:  # pragma: no cover
@@ -358,12 +376,19 @@ def _iir_reference(b: F64, a: F64, x: F64) -> F64:  # pragma: no cover - compile
 # ----------------------------------------------------------------------------- inputs
 
 
-def _inputs(design: Design, codes: ArrayLike, temps_centi: ArrayLike | None
-            ) -> tuple[I64, I64 | None]:
-    x, t = _record(design, codes, temps_centi)
+def _inputs(design: Design, codes: ArrayLike, temps_centi: ArrayLike | None, *,
+            ndim: int = 1) -> tuple[I64, I64 | None]:
+    """``_record``'s arrays, the codes checked against the ADC's range."""
+    x, t = _record(design, codes, temps_centi, ndim=ndim)
     if x.size and (x.min() < design.code_min or x.max() > design.code_max):
-        raise ValueError(f"codes must be a 1-D array of {design.spec.adc.bits}-bit values")
+        raise ValueError(_codes_text(design, ndim))
     return x, t
+
+
+def _codes_text(design: Design, ndim: int) -> str:
+    """What codes must be: a record (1-D) or a stack of records (2-D, one per unit)."""
+    shape = "1-D array" if ndim == 1 else "2-D array (units, readings)"
+    return f"codes must be a {shape} of {design.spec.adc.bits}-bit values"
 
 
 def _output_temps(design: Design, t: I64 | None, n_out: int) -> I64 | None:
@@ -374,6 +399,7 @@ def _output_temps(design: Design, t: I64 | None, n_out: int) -> I64 | None:
 
 
 _NO_TEMPS = np.zeros(0, dtype=np.int64)
+_NO_TEMPS_2D = np.zeros((0, 0), dtype=np.int64)
 
 
 def _static_names(design: Design) -> list[tuple[int, str]]:
@@ -438,13 +464,13 @@ def _specialised_chain(c: Cascade) -> Callable[..., Any] | None:
         return None
 
 
-def _record(design: Design, codes: ArrayLike, temps_centi: ArrayLike | None
-            ) -> tuple[I64, I64 | None]:
-    """Codes and temperatures as int64 arrays, shapes checked (the code range is checked
-    by whoever runs them)."""
+def _record(design: Design, codes: ArrayLike, temps_centi: ArrayLike | None, *,
+            ndim: int = 1) -> tuple[I64, I64 | None]:
+    """Codes and temperatures as int64 arrays, shapes checked (``ndim``: 1 for a record,
+    2 for a stack of them; the code range is checked by whoever runs them)."""
     x = np.ascontiguousarray(codes, dtype=np.int64)
-    if x.ndim != 1:
-        raise ValueError(f"codes must be a 1-D array of {design.spec.adc.bits}-bit values")
+    if x.ndim != ndim:
+        raise ValueError(_codes_text(design, ndim))
     if temps_centi is None:
         return x, None
     t = np.ascontiguousarray(temps_centi, dtype=np.int64)
@@ -527,6 +553,33 @@ def static_outputs(design: Design, codes: ArrayLike, temps_centi: ArrayLike | No
     p = static_params(design, constants=constants)
     out: I64 = _static_run(x, _NO_TEMPS if t is None else t, t is not None, p.ints, p.lin)[0]
     return out
+
+
+def static_outputs_many(design: Design, codes: ArrayLike, temps_centi: ArrayLike | None,
+                        constants: Sequence[UnitConstants]) -> I64:
+    """``static_outputs`` of a stack of U units in one compiled call: row i of the
+    (U, n) outputs is ``static_outputs(design, codes[i], temps_centi[i],
+    constants=constants[i])``. ``codes`` and ``temps_centi`` (0.01 C, or None) are
+    (U, n); each unit's constants are checked by the caller
+    (``Design.check_in_force_many``)."""
+    x, t = _inputs(design, codes, temps_centi, ndim=2)
+    if len(constants) != x.shape[0]:
+        raise ValueError(f"{len(constants)} units' constants for {x.shape[0]} rows of codes")
+    ints, lin = _params_many(design, ConstantsStack.of(constants, design.lin_count))
+    out: I64 = _static_many(x, _NO_TEMPS_2D if t is None else t, t is not None, ints, lin)
+    return out
+
+
+def _params_many(design: Design, stack: ConstantsStack) -> tuple[I64, I64]:
+    """``static_params(design, constants=c).ints`` and ``.lin`` of every unit of
+    ``stack``, as (U, 16) and (U, max(k, 1)) arrays."""
+    ints = np.tile(np.asarray(static_params(design).ints, dtype=np.int64),
+                   (stack.offset.size, 1))
+    for i, name in UNIT_INTS + (UNIT_TC_INTS if design.temperature is not None else ()):
+        ints[:, i] = getattr(stack, name)
+    lin = stack.lin if design.linearisation is not None else \
+        np.zeros((stack.offset.size, 1), dtype=np.int64)
+    return ints, np.ascontiguousarray(lin)
 
 
 # ----------------------------------------------------------------------------- float
