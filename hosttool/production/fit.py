@@ -32,10 +32,12 @@ unit that misses its limits is not refused: its verdict is "fail" with the reaso
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from collections.abc import Sequence
+from dataclasses import dataclass, replace
 from typing import Any, NamedTuple
 
 import numpy as np
+from numpy.linalg import _umath_linalg
 from numpy.typing import NDArray
 
 from hosttool import __version__
@@ -53,27 +55,29 @@ from hosttool.formats.caljson import (
 )
 from hosttool.formats.readings import UnitReadings
 from hosttool.physics.oiml import max_intervals, mpe_intervals
+from hosttool.production.stack import (
+    DISAGREE_PCT_SPAN,
+    PointPlan,
+    PointRules,
+    UnitStack,
+    plans,
+    refuse_points,
+    refuse_rows,
+    running_max,
+    sum_columns,
+    unit_where,
+)
 from hosttool.util.cautions import SAFETY
 from hosttool.util.utctime import format_time_utc
 
 F64 = NDArray[np.float64]
 
-#: A reading whose mean lies within this many standard deviations of a code limit may have
-#: clipped samples: refused as saturated (our choice).
-SATURATION_SIGMA = 3.0
-#: raw_std above this many times (calibration.max_noise_ratio x the ADC noise) is refused as
-#: an unsettled measurement; between 1 and this factor the unit fails its noise limit.
-NOISE_REFUSE_FACTOR = 5.0
-#: Temperatures that chain together in steps of at most this are one temperature, C.
-TEMP_GROUP_C = 1.0
-#: Readings of one point (reference and temperature) differing by more than this share of
-#: the nominal span are refused as disagreeing duplicates (our choice; hysteresis and
-#: repeatability are orders of magnitude smaller).
-DISAGREE_PCT_SPAN = 1.0
 #: Largest condition number of the fit's design matrix (columns scaled to 1) accepted: the
 #: readings must determine zero, span and their drifts (our choice; a lot spread as the
 #: README asks is below 1e3).
 MAX_CONDITION = 1e8
+#: numpy's least-squares generalised ufunc over a stack (numpy 2); None: one call per unit.
+_STACKED_LSTSQ = getattr(_umath_linalg, "lstsq", None)
 
 
 class Criterion(NamedTuple):
@@ -206,244 +210,225 @@ class CalibrationContext:
         return np.asarray(self.design.bridge.tangent_reading(reference))
 
 
-# ----------------------------------------------------------------------------- refusals
+# ----------------------------------------------------------------------------- fit
+
+#: What stops one unit: its readings refused, or arithmetic that failed on them.
+UnitFailure = InputError | ArithmeticError | ValueError
 
 
 @dataclass(frozen=True)
-class _Layout:
-    """The readings as plain lists (faster than numpy at a dozen values), grouped into
-    points: (temperature group, reference in LSB) -> indices, in file order."""
+class _Fits:
+    """The straight-line fits of a stack's units, one value per unit."""
 
-    mean: list[float]
-    up: list[bool]
-    group: list[int]
-    points: dict[tuple[int, int], list[int]]
-    split: list[tuple[list[float], list[float]]]    # each point's means: (up, down)
-
-    @classmethod
-    def of(cls, ctx: CalibrationContext, u: UnitReadings) -> _Layout:
-        temps = u.temperature_c.tolist()
-        order = sorted(range(len(temps)), key=temps.__getitem__)
-        group = [0] * len(temps)
-        g = 0
-        for before, after in zip(order, order[1:], strict=False):
-            g += temps[after] - temps[before] > TEMP_GROUP_C
-            group[after] = g
-        points: dict[tuple[int, int], list[int]] = {}
-        for i, ref in enumerate(u.reference.tolist()):
-            points.setdefault((group[i], round(ref / ctx.resolution)), []).append(i)
-        mean, up = u.raw_mean.tolist(), u.up.tolist()
-        split = [([mean[i] for i in idx if up[i]], [mean[i] for i in idx if not up[i]])
-                 for idx in points.values()]
-        return cls(mean, up, group, points, split)
+    a: F64                    # zero, counts
+    b: F64                    # counts per unit of u
+    z: F64                    # zero drift, counts per C
+    k: F64                    # relative span drift, per C
+    residual: F64             # (U, n) straight-line residuals, counts
 
 
-def _refuse_rows(ctx: CalibrationContext, u: UnitReadings) -> None:
-    spec = ctx.design.spec
-    assert spec.calibration is not None
-    mean, std = u.raw_mean.tolist(), u.raw_std.tolist()
-    for i, (m, s) in enumerate(zip(mean, std, strict=True)):
-        top, bottom = m + SATURATION_SIGMA * s, m - SATURATION_SIGMA * s
-        if top >= ctx.code_max or bottom <= ctx.code_min:
-            limit = ctx.code_max if top >= ctx.code_max else ctx.code_min
-            raise InputError(f"{u.where(i)}: raw_mean_counts: {m:.1f} counts (std {s:.1f}) "
-                             f"reaches the {spec.adc.bits}-bit limit {limit}: the ADC "
-                             "saturated; check the gain, the wiring and the load")
-    far = NOISE_REFUSE_FACTOR * spec.calibration.max_noise_ratio * ctx.noise_counts
-    noisy = next((i for i, s in enumerate(std) if s > far), None)
-    if noisy is not None:
-        s = std[noisy]
-        raise InputError(f"{u.where(noisy)}: raw_std_counts: {s:.4g} counts is "
-                         f"{s / ctx.noise_counts:.3g} x the ADC noise "
-                         f"({ctx.noise_counts:.4g} counts RMS), far above "
-                         f"calibration.max_noise_ratio = {spec.calibration.max_noise_ratio:g}: "
-                         "the reading was not settled (vibration, draught, loose wiring?); "
-                         "measure again")
-
-
-def _refuse_points(ctx: CalibrationContext, u: UnitReadings, lay: _Layout) -> None:
+def _point_rules(ctx: CalibrationContext) -> PointRules:
     spec = ctx.design.spec
     cal = spec.calibration
     assert cal is not None
-    unit = spec.sensor.unit
-    refs = {key for _, key in lay.points}
-    for p in cal.points:
-        if round(p / ctx.resolution) not in refs:
-            raise InputError(f"{_unit_where(u)}: no reading at the reference {p:g} {unit} that "
-                             "calibration.points asks for")
     lin = ctx.design.linearisation
-    needed = spec.linearisation.order + 1 if lin is not None and lin.mode == "polynomial" \
-        else 2
-    if len(refs) < needed:
-        raise InputError(f"{_unit_where(u)}: {len(refs)} distinct reference values; the fit "
-                         f"needs at least {needed}")
-    tolerance = DISAGREE_PCT_SPAN / 100 * abs(ctx.nominal_b) * ctx.span_range
-    for idx in lay.points.values():
-        values = [lay.mean[i] for i in idx]
-        if max(values) - min(values) > tolerance:
-            hi, lo = idx[values.index(max(values))], idx[values.index(min(values))]
-            raise InputError(f"{u.where(hi)}: raw_mean_counts: {lay.mean[hi]:.1f} and line "
-                             f"{u.lines[lo]} ({lay.mean[lo]:.1f}) read the same reference "
-                             f"{u.reference[hi]:g} {unit} at the same temperature but differ "
-                             f"by more than {DISAGREE_PCT_SPAN:g} % of the span: duplicate "
-                             "points that disagree")
-    _refuse_non_monotonic(u, lay)
-    if spec.temperature is not None:
-        per_group: dict[int, int] = {}
-        for g, _ in lay.points:
-            per_group[g] = per_group.get(g, 0) + 1
-        usable = sum(count >= 2 for count in per_group.values())
-        if usable < 2:
-            raise InputError(f"{_unit_where(u)}: temperature compensation needs readings at two or "
-                             f"more temperatures (more than {TEMP_GROUP_C:g} C apart), each "
-                             f"with at least two reference values; found {usable}")
-    split = lay.split
-    if cal.max_hysteresis is not None and not any(up and down for up, down in split):
-        raise InputError(f"{_unit_where(u)}: calibration.max_hysteresis is set but no "
-                         "reference has both 'up' and 'down' readings")
-    if cal.max_repeatability is not None and not any(
-            len(up) >= 2 or len(down) >= 2 for up, down in split):
-        raise InputError(f"{_unit_where(u)}: calibration.max_repeatability is set but no point is "
-                         "repeated (two readings, same reference, temperature and direction)")
+    return PointRules(
+        resolution=ctx.resolution, unit=spec.sensor.unit,
+        calibration_points=tuple(cal.points),
+        needed_references=spec.linearisation.order + 1
+        if lin is not None and lin.mode == "polynomial" else 2,
+        tolerance=DISAGREE_PCT_SPAN / 100 * abs(ctx.nominal_b) * ctx.span_range,
+        temperature=spec.temperature is not None,
+        hysteresis=cal.max_hysteresis is not None,
+        repeatability=cal.max_repeatability is not None)
 
 
-def _refuse_non_monotonic(u: UnitReadings, lay: _Layout) -> None:
-    steps: list[tuple[float, int, int]] = []      # between neighbouring references
-    last: tuple[int, float, int] | None = None     # group, mean, first reading of a point
-    for (g, _), idx in sorted(lay.points.items()):
-        mean = sum(lay.mean[i] for i in idx) / len(idx)
-        if last is not None and last[0] == g:
-            steps.append((mean - last[1], last[2], idx[0]))
-        last = (g, mean, idx[0])
-    direction = math.copysign(1.0, sum(step for step, _, _ in steps))
-    for step, before, after in steps:
-        if step * direction <= 0:
-            raise InputError(f"{u.where(after)}: raw_mean_counts: the response at "
-                             f"{u.reference[after]:g} is not beyond the one at "
-                             f"{u.reference[before]:g} (line {u.lines[before]}): the response "
-                             "is not monotonic (reading mislabelled, load shunted or cell "
-                             "damaged?)")
-
-
-# ----------------------------------------------------------------------------- fit
-
-
-@dataclass(frozen=True)
-class _Fit:
-    a: float                  # zero, counts
-    b: float                  # counts per unit of u
-    z: float                  # zero drift, counts per C
-    k: float                  # relative span drift, per C
-    residual: F64             # straight-line residuals, counts
-
-
-def _unit_where(u: UnitReadings) -> str:
-    """``file:line: serial S`` of a unit, at its first reading (for refusals of the unit)."""
-    return f"{u.where(0)}: serial {u.serial}"
-
-
-def _fit(ctx: CalibrationContext, u: UnitReadings, shape: F64) -> _Fit:
-    """The least-squares fit, guarded: the readings must determine every parameter (the
-    design matrix, columns scaled to 1, has condition number at most ``MAX_CONDITION``),
-    and the result must be finite and inside the physics range (``_refuse_fit``)."""
+def _design_matrix(ctx: CalibrationContext, st: UnitStack) -> F64:
+    """(U, n, 2) columns [1, u] or (U, n, 4) [1, dT, u, u dT]."""
+    shape = ctx.shape(st.reference)
     temp = ctx.design.spec.temperature
-    x = np.ones((shape.size, 2 if temp is None else 4))
+    x = np.ones(shape.shape + (2 if temp is None else 4,))
     if temp is None:
-        x[:, 1] = shape
+        x[..., 1] = shape
     else:
-        dt = u.temperature_c - temp.reference_c
-        x[:, 1], x[:, 2], x[:, 3] = dt, shape, shape * dt
+        dt = st.temperature_c - temp.reference_c
+        x[..., 1], x[..., 2], x[..., 3] = dt, shape, shape * dt
+    return x
+
+
+def _lstsq(x: F64, y: F64) -> F64:
+    """numpy.linalg.lstsq(x[i], y[i], rcond=None)[0] for every i, bit for bit: numpy's
+    own least-squares kernel (the generalised ufunc behind ``lstsq``, LAPACK's gelsd) over
+    the stack; a unit whose solution is not finite is solved again alone, so that a failure
+    of the decomposition raises for that unit as ``lstsq`` does."""
+    if _STACKED_LSTSQ is None:
+        return np.stack([np.linalg.lstsq(a, b, rcond=None)[0] for a, b in zip(x, y,
+                                                                             strict=True)])
+    m, n = x.shape[-2:]
     with np.errstate(all="ignore"):
-        norms = np.abs(x).max(axis=0)
-        if not np.isfinite(x).all() or not (norms > 0).all():
-            raise InputError(f"{_unit_where(u)}: the readings do not determine the fit (a "
-                             "column of the straight-line model is zero or not finite)")
+        beta = _STACKED_LSTSQ(x, y[..., None], np.finfo(np.float64).eps * max(m, n),
+                              signature="ddd->ddid")[0][..., 0]
+    for r in np.flatnonzero(~np.isfinite(beta).all(axis=1)).tolist():
+        beta[r] = np.linalg.lstsq(x[r], y[r], rcond=None)[0]
+    return np.asarray(beta, dtype=np.float64)
+
+
+def _fit(ctx: CalibrationContext, st: UnitStack, refused: dict[int, InputError]
+         ) -> _Fits:
+    """The least-squares fits, guarded (refusals added to ``refused``, by row): the
+    readings must determine every parameter (the design matrix, columns scaled to 1, has
+    condition number at most ``MAX_CONDITION``), and the result must be finite and inside
+    the physics range (``_refuse_fit``). Rows refused keep values that mean nothing."""
+    x = _design_matrix(ctx, st)
+    with np.errstate(all="ignore"):
+        norms = np.abs(x).max(axis=1)
+        usable = np.isfinite(x).all(axis=(1, 2)) & (norms > 0).all(axis=1)
+        for r in np.flatnonzero(~usable).tolist():
+            refused[r] = InputError(f"{unit_where(st.units[r])}: the readings do not "
+                                    "determine the fit (a column of the straight-line model "
+                                    "is zero or not finite)")
+        scaled = np.where(usable[:, None, None], x / np.where(norms > 0, norms, 1.0)[:, None],
+                          np.eye(x.shape[1], x.shape[2]))
         # numpy.linalg.cond(x / norms) without its checks: the ratio of the extreme
-        # singular values (x is finite, a column is not zero)
-        singular = np.linalg.svd(x / norms, compute_uv=False)
-        condition = float(singular[0] / singular[-1])
-        if not condition <= MAX_CONDITION:
-            raise InputError(f"{_unit_where(u)}: the readings do not determine the fit (condition "
-                             f"number {condition:.3g} above {MAX_CONDITION:g}): spread the "
-                             "references and temperatures")
-        beta = np.linalg.lstsq(x, u.raw_mean, rcond=None)[0]
-        residual = u.raw_mean - x @ beta
-    fitted: list[float] = beta.tolist()
-    _refuse_fit(ctx, u, fitted)
-    if temp is None:
-        return _Fit(fitted[0], fitted[1], 0.0, 0.0, residual)
-    return _Fit(fitted[0], fitted[2], fitted[1], fitted[3] / fitted[2], residual)
+        # singular values
+        singular = np.linalg.svd(scaled, compute_uv=False)
+        condition = singular[:, 0] / singular[:, -1]
+    for r in np.flatnonzero(~(condition <= MAX_CONDITION)).tolist():
+        refused.setdefault(r, InputError(
+            f"{unit_where(st.units[r])}: the readings do not determine the fit (condition "
+            f"number {float(condition[r]):.3g} above {MAX_CONDITION:g}): spread the "
+            "references and temperatures"))
+    live = np.array([r not in refused for r in range(len(st))])
+    beta = np.zeros((len(st), x.shape[2]))
+    if live.any():
+        beta[live] = _lstsq(x[live], st.mean[live])
+    residual = np.zeros_like(st.mean)
+    for r in np.flatnonzero(live).tolist():
+        residual[r] = st.mean[r] - x[r] @ beta[r]
+    _refuse_fit(ctx, st, beta, live, refused)
+    if ctx.design.spec.temperature is None:
+        zeros = np.zeros(len(st))
+        return _Fits(beta[:, 0], beta[:, 1], zeros, zeros, residual)
+    with np.errstate(all="ignore"):
+        k = beta[:, 3] / beta[:, 2]
+    return _Fits(beta[:, 0], beta[:, 2], beta[:, 1], k, residual)
 
 
-def _refuse_fit(ctx: CalibrationContext, u: UnitReadings, beta: list[float]) -> None:
-    """Refuse a fit (zero first, span at index 1, or 2 with temperature) that is not
-    finite or that no bridge of this spec could give: a zero outside the ADC's code range,
-    or a response over the whole measuring range smaller than the ADC's own noise (nothing
-    was measured) or larger than the code range."""
-    if not all(map(math.isfinite, beta)):
-        raise InputError(f"{_unit_where(u)}: the fit of the readings is not finite")
+def _refuse_fit(ctx: CalibrationContext, st: UnitStack, beta: F64, live: NDArray[np.bool_],
+                refused: dict[int, InputError]) -> None:
+    """Refuse fits (zero first, span at index 1, or 2 with temperature) that are not finite
+    or that no bridge of this spec could give: a zero outside the ADC's code range, or a
+    response over the whole measuring range smaller than the ADC's own noise (nothing was
+    measured) or larger than the code range."""
     codes = ctx.code_max - ctx.code_min
-    if not ctx.code_min <= beta[0] <= ctx.code_max:
-        raise InputError(f"{_unit_where(u)}: the fitted zero {beta[0]:.4g} counts lies "
-                         f"outside the code range {ctx.code_min} .. {ctx.code_max}")
-    response = abs(beta[1] if len(beta) == 2 else beta[2]) * ctx.span_range
-    if not ctx.noise_counts <= response <= codes:
-        raise InputError(f"{_unit_where(u)}: the fitted response over the range is {response:.4g} "
-                         f"counts, outside what the bridge can give ({ctx.noise_counts:.4g}, "
-                         f"the ADC's noise, .. {codes}, the code range; nominal "
-                         f"{abs(ctx.nominal_b) * ctx.span_range:.4g}): not a working unit or "
-                         "mislabelled readings")
+    zero = beta[:, 0]
+    with np.errstate(all="ignore"):
+        response = np.abs(beta[:, 1 if beta.shape[1] == 2 else 2]) * ctx.span_range
+    finite = np.asarray(np.isfinite(beta).all(axis=1))
+    zero_ok = (ctx.code_min <= zero) & (zero <= ctx.code_max)
+    response_ok = (ctx.noise_counts <= response) & (response <= codes)
+    for r in np.flatnonzero(live & ~(finite & zero_ok & response_ok)).tolist():
+        where = unit_where(st.units[r])
+        if not finite[r]:
+            refused[r] = InputError(f"{where}: the fit of the readings is not finite")
+        elif not zero_ok[r]:
+            refused[r] = InputError(f"{where}: the fitted zero {float(zero[r]):.4g} counts "
+                                    f"lies outside the code range {ctx.code_min} .. "
+                                    f"{ctx.code_max}")
+        else:
+            refused[r] = InputError(
+                f"{where}: the fitted response over the range is {float(response[r]):.4g} "
+                f"counts, outside what the bridge can give ({ctx.noise_counts:.4g}, the "
+                f"ADC's noise, .. {codes}, the code range; nominal "
+                f"{abs(ctx.nominal_b) * ctx.span_range:.4g}): not a working unit or "
+                "mislabelled readings")
 
 
-def _constants(ctx: CalibrationContext, u: UnitReadings, fit: _Fit
-               ) -> tuple[UnitConstants, dict[str, float]]:
-    """Round the fit into the design's formats; also return the unrounded values."""
+def _constants(ctx: CalibrationContext, st: UnitStack, fits: _Fits, rows: list[int],
+               refused: dict[int, InputError]
+               ) -> dict[int, tuple[UnitConstants, dict[str, float]]]:
+    """Round the fits of ``rows`` into the design's formats (row -> constants and their
+    unrounded values); a constant that is not finite refuses its unit."""
     d = ctx.design
     g, s = d.guard_bits, d.scale.shift
-    exact: dict[str, float] = {}
+    index = np.asarray(rows, dtype=np.intp)
+    exact: dict[str, F64] = {}
+    with np.errstate(all="ignore"):
+        exact["offset"] = np.ldexp(fits.a[index], g)
+        exact["scale_mul"] = np.ldexp(1.0 / (fits.b[index] * ctx.resolution), s - g)
+        scale_mul = np.rint(exact["scale_mul"])
+        realised = np.ldexp(scale_mul, -s)
+        tc = d.temperature
+        if tc is not None:
+            exact["tc_zero"] = np.ldexp(fits.z[index] * realised / 100, g + tc.zero_shift)
+            exact["tc_span"] = np.ldexp(-fits.k[index] / 100, LIN_FRAC + tc.span_shift)
+    finite = {name: np.isfinite(values).tolist() for name, values in exact.items()}
+    values = {name: v.tolist() for name, v in exact.items()}
+    integers = {name: [round(v) if ok else 0 for v, ok in zip(v_list, finite[name],
+                                                               strict=True)]
+                for name, v_list in values.items()}
+    lin_mode = d.linearisation.mode if d.linearisation is not None else None
+    shared_lin: tuple[int, ...] = d.nominal.lin if lin_mode == "bridge_inverse" else ()
+    shared_exact = ({f"lin[{k}]": math.ldexp(c, LIN_FRAC)
+                     for k, c in enumerate(d.linearisation.coeffs)}
+                    if d.linearisation is not None and lin_mode == "bridge_inverse" else {})
+    out: dict[int, tuple[UnitConstants, dict[str, float]]] = {}
+    for j, r in enumerate(rows):
+        bad = next((name for name in exact if not finite[name][j]), None)
+        if bad is not None:
+            refused[r] = InputError(f"{unit_where(st.units[r])}: the constant {bad} of this "
+                                    "fit is not finite")
+            continue
+        unit_exact = {name: values[name][j] for name in exact}
+        c = UnitConstants(offset=integers["offset"][j], scale_mul=integers["scale_mul"][j],
+                          lin=shared_lin,
+                          tc_zero=integers["tc_zero"][j] if tc is not None else 0,
+                          tc_span=integers["tc_span"][j] if tc is not None else 0)
+        if lin_mode == "polynomial":
+            try:
+                c = replace(c, lin=_polynomial(ctx, st.units[r], c, unit_exact))
+            except InputError as exc:
+                refused[r] = exc
+                continue
+        else:
+            unit_exact.update(shared_exact)
+        out[r] = (c, unit_exact)
+    return out
 
-    def put(name: str, mantissa: float, exponent: int) -> int:
-        """exact[name] = mantissa * 2^exponent, rounded; refused when not finite."""
+
+def _polynomial(ctx: CalibrationContext, u: UnitReadings, c: UnitConstants,
+                exact: dict[str, float]) -> tuple[int, ...]:
+    """The "polynomial" mode's per-unit C_0 .. C_n: a fit in the design's normalised
+    variable w = s / 2^K to what the firmware must output (their unrounded values added to
+    ``exact``)."""
+    d = ctx.design
+    assert d.linearisation is not None
+    realised = math.ldexp(c.scale_mul, -d.scale.shift)
+    k_norm = d.linearisation.norm_shift
+    w = (np.ldexp(u.raw_mean, d.guard_bits) - c.offset) * realised / 2.0 ** k_norm
+    target = u.reference / ctx.resolution
+    tc = d.temperature
+    if tc is not None:
+        dt = np.clip(np.rint(u.temperature_c * 100), tc.min_centi, tc.max_centi) \
+            - tc.reference_centi
+        gamma = c.tc_span / 2.0 ** (tc.span_shift + LIN_FRAC)
+        target = target / (1 + gamma * dt) + c.tc_zero / 2.0 ** tc.zero_shift * dt
+    if not (np.all(np.isfinite(w)) and np.all(np.isfinite(target))):
+        raise InputError(f"{unit_where(u)}: the linearisation fit of this unit is not finite")
+    coeffs = np.polynomial.polynomial.polyfit(w, target / 2.0 ** k_norm,
+                                              d.spec.linearisation.order)
+    lin = []
+    for k, coeff in enumerate(coeffs.tolist()):
         try:
-            value = math.ldexp(mantissa, exponent)
+            value = math.ldexp(coeff, LIN_FRAC)
         except OverflowError:
             value = math.inf
         if not math.isfinite(value):
-            raise InputError(f"{_unit_where(u)}: the constant {name} of this fit is not "
+            raise InputError(f"{unit_where(u)}: the constant lin[{k}] of this fit is not "
                              "finite")
-        exact[name] = value
-        return round(value)
-
-    offset = put("offset", fit.a, g)
-    scale_mul = put("scale_mul", 1.0 / (fit.b * ctx.resolution), s - g)
-    realised = math.ldexp(scale_mul, -s)
-    tc_zero = tc_span = 0
-    tc = d.temperature
-    if tc is not None:
-        tc_zero = put("tc_zero", fit.z * realised / 100, g + tc.zero_shift)
-        tc_span = put("tc_span", -fit.k / 100, LIN_FRAC + tc.span_shift)
-    lin: tuple[int, ...] = ()
-    if d.linearisation is not None and d.linearisation.mode == "bridge_inverse":
-        lin = d.nominal.lin
-        for k, c in enumerate(d.linearisation.coeffs):
-            exact[f"lin[{k}]"] = math.ldexp(c, LIN_FRAC)
-    elif d.linearisation is not None:
-        k_norm = d.linearisation.norm_shift
-        w = (np.ldexp(u.raw_mean, g) - offset) * realised / 2.0 ** k_norm
-        target = u.reference / ctx.resolution
-        if tc is not None:
-            dt = np.clip(np.rint(u.temperature_c * 100), tc.min_centi, tc.max_centi) \
-                - tc.reference_centi
-            gamma = tc_span / 2.0 ** (tc.span_shift + LIN_FRAC)
-            target = target / (1 + gamma * dt) + tc_zero / 2.0 ** tc.zero_shift * dt
-        if not (np.all(np.isfinite(w)) and np.all(np.isfinite(target))):
-            raise InputError(f"{_unit_where(u)}: the linearisation fit of this unit is not "
-                             "finite")
-        coeffs = np.polynomial.polynomial.polyfit(w, target / 2.0 ** k_norm,
-                                                  d.spec.linearisation.order)
-        lin = tuple(put(f"lin[{k}]", float(c), LIN_FRAC) for k, c in enumerate(coeffs))
-    return UnitConstants(offset=offset, scale_mul=scale_mul, lin=lin, tc_zero=tc_zero,
-                         tc_span=tc_span), exact
+        exact[f"lin[{k}]"] = value
+        lin.append(round(value))
+    return tuple(lin)
 
 
 def _rounding(ctx: CalibrationContext, c: UnitConstants,
@@ -476,62 +461,74 @@ def _rounding(ctx: CalibrationContext, c: UnitConstants,
 # ----------------------------------------------------------------------------- judging
 
 
-def _figures(ctx: CalibrationContext, fit: _Fit, lay: _Layout, u: UnitReadings,
-             error: F64 | None) -> dict[str, float | None]:
-    b = abs(fit.b)
-    hysteresis: float | None = None
-    repeatability: float | None = None
-    for up, down in lay.split:
-        if up and down:
-            hysteresis = max(hysteresis or 0.0,
-                             abs(sum(up) / len(up) - sum(down) / len(down)) / b)
-        for same in (up, down):
-            if len(same) >= 2:
-                repeatability = max(repeatability or 0.0, (max(same) - min(same)) / b)
-    figures: dict[str, float | None] = {
-        "zero_counts": fit.a,
-        "zero_mv_per_v": fit.a * ctx.ratio_per_count * 1e3,
-        "span_counts_per_unit": fit.b,
-        "span_deviation_pct": (fit.b / ctx.nominal_b - 1) * 100,
-        "nonlinearity": max(map(abs, fit.residual.tolist())) / b,
-        "hysteresis": hysteresis,             # None: no point read both up and down
-        "repeatability": repeatability,       # None: no point repeated
-        "noise_ratio": max(u.raw_std.tolist()) / ctx.noise_counts,
-    }
-    if ctx.design.temperature is not None:
-        figures["zero_tc_ppm_fs_per_c"] = fit.z / fit.b / ctx.full_scale * 1e6
-        figures["span_tc_ppm_per_c"] = fit.k * 1e6
-    if error is not None:
-        figures["max_error"] = max(map(abs, error.tolist()))
+def _figures(ctx: CalibrationContext, fits: _Fits, plan: PointPlan, st: UnitStack,
+             error: F64) -> dict[str, list[float | None]]:
+    """Each figure per unit of the stack (a list over its rows); ``error`` (U, n) with NaN
+    rows for units whose constants are not in force (no max_error for them)."""
+    u_count = len(st)
+    b = np.abs(fits.b)
+    hysteresis: F64 | None = None
+    repeatability: F64 | None = None
+    with np.errstate(all="ignore"):
+        for up, down in plan.split:
+            if up and down:
+                hysteresis = running_max(hysteresis, np.abs(
+                    sum_columns(st.mean, up) / len(up)
+                    - sum_columns(st.mean, down) / len(down)) / b)
+            for same in (up, down):
+                if len(same) >= 2:
+                    values = st.mean[:, same]
+                    repeatability = running_max(
+                        repeatability, (values.max(axis=1) - values.min(axis=1)) / b)
+        figures: dict[str, list[float | None]] = {
+            "zero_counts": fits.a.tolist(),
+            "zero_mv_per_v": (fits.a * ctx.ratio_per_count * 1e3).tolist(),
+            "span_counts_per_unit": fits.b.tolist(),
+            "span_deviation_pct": ((fits.b / ctx.nominal_b - 1) * 100).tolist(),
+            "nonlinearity": (np.abs(fits.residual).max(axis=1) / b).tolist(),
+            "hysteresis": [None] * u_count if hysteresis is None else hysteresis.tolist(),
+            "repeatability": ([None] * u_count if repeatability is None
+                              else repeatability.tolist()),
+            "noise_ratio": (st.std.max(axis=1) / ctx.noise_counts).tolist(),
+        }
+        if ctx.design.temperature is not None:
+            figures["zero_tc_ppm_fs_per_c"] = (fits.z / fits.b / ctx.full_scale
+                                               * 1e6).tolist()
+            figures["span_tc_ppm_per_c"] = (fits.k * 1e6).tolist()
+        figures["max_error"] = np.abs(error).max(axis=1).tolist()
     return figures
 
 
-def _criteria(ctx: CalibrationContext, u: UnitReadings, figures: dict[str, float | None],
-              error: F64 | None) -> tuple[Criterion, ...]:
+#: Each criterion: key, label, figure (or how it is derived), spec limit, its unit.
+def _criteria_rows(ctx: CalibrationContext, figures: dict[str, list[float | None]],
+                   st: UnitStack, error: F64
+                   ) -> list[tuple[str, str, list[float | None], float | None, str, str]]:
+    """The pass/fail table's rows, each value per unit (None where not evaluated)."""
     spec = ctx.design.spec
     cal = spec.calibration
     assert cal is not None
     unit = spec.sensor.unit
-    worst = figures.get("max_error")
+    judged: list[bool] = np.asarray(np.isfinite(error).all(axis=1)).tolist()
+    worst = [w if ok else None for w, ok in zip(figures["max_error"], judged, strict=True)]
 
-    def size(key: str) -> float:
-        value = figures[key]
-        assert value is not None            # always measured
-        return abs(value)
+    def size(key: str) -> list[float | None]:
+        return [None if v is None else abs(v) for v in figures[key]]
 
-    rows: list[tuple[str, str, float | None, float | None, str, str]] = [
+    rows: list[tuple[str, str, list[float | None], float | None, str, str]] = [
         ("max_error", "error", worst, cal.max_error, unit, "calibration.max_error")]
     if cal.max_error_pct_span is not None:
         rows.append(("max_error_pct_span", "error, % of span",
-                     None if worst is None else worst / ctx.span_range * 100,
+                     [None if w is None else w / ctx.span_range * 100 for w in worst],
                      cal.max_error_pct_span, "%", "calibration.max_error_pct_span"))
     if cal.oiml_class is not None:
-        ratio = None
-        if error is not None:
-            ratio = max(abs(e) / (mpe_intervals(cal.oiml_class, r / ctx.resolution)
-                                  * ctx.resolution)
-                        for e, r in zip(error.tolist(), u.reference.tolist(), strict=True))
-        rows.append(("oiml_mpe_ratio", f"error / mpe of class {cal.oiml_class}", ratio, 1.0,
+        mpe: dict[float, float] = {}
+        for r in np.unique(st.reference).tolist():
+            mpe[r] = mpe_intervals(cal.oiml_class, r / ctx.resolution) * ctx.resolution
+        allowed = np.vectorize(mpe.__getitem__, otypes=[np.float64])(st.reference)
+        with np.errstate(all="ignore"):
+            ratios = (np.abs(error) / allowed).max(axis=1).tolist()
+        rows.append(("oiml_mpe_ratio", f"error / mpe of class {cal.oiml_class}",
+                     [v if ok else None for v, ok in zip(ratios, judged, strict=True)], 1.0,
                      "", "calibration.oiml_class (OIML R 76-1)"))
     rows += [
         ("zero_offset", "zero offset", size("zero_mv_per_v"),
@@ -555,9 +552,14 @@ def _criteria(ctx: CalibrationContext, u: UnitReadings, figures: dict[str, float
              temp.max_zero_tc_ppm_fs_per_c, "ppm FS/C", "temperature.max_zero_tc_ppm_fs_per_c"),
             ("span_tc", "span temperature coefficient", figures["span_tc_ppm_per_c"],
              temp.max_span_tc_ppm_per_c, "ppm/C", "temperature.max_span_tc_ppm_per_c")]
-    return tuple([Criterion(key, label, value, limit, unit_, source,
-                            limit is None or (value is not None and abs(value) <= limit))
-                  for key, label, value, limit, unit_, source in rows])
+    return rows
+
+
+def _criterion(key: str, label: str, value: float | None, limit: float | None, unit: str,
+               source: str) -> Criterion:
+    """One row of the table: passed when no limit is set or |value| is within it."""
+    return Criterion(key, label, value, limit, unit, source,
+                     limit is None or (value is not None and abs(value) <= limit))
 
 
 def point_limits(ctx: CalibrationContext, reference: F64) -> F64:
@@ -581,31 +583,112 @@ def point_limits(ctx: CalibrationContext, reference: F64) -> F64:
 def calibrate_unit(ctx: CalibrationContext, u: UnitReadings, *,
                    cal_time_utc: int) -> UnitCalibration:
     """Fit, encode, judge one unit (``InputError`` if its readings are refused)."""
-    _refuse_rows(ctx, u)
-    lay = _Layout.of(ctx, u)
-    _refuse_points(ctx, u, lay)
-    fit = _fit(ctx, u, ctx.shape(u.reference))
-    constants, exact = _constants(ctx, u, fit)
-    output: F64 | None = None
-    error: F64 | None = None
-    formats_ok, formats_reason = True, ""
+    result = calibrate_units(ctx, [u], [cal_time_utc])[0]
+    if isinstance(result, UnitCalibration):
+        return result
+    raise result
+
+
+def calibrate_units(ctx: CalibrationContext, units: Sequence[UnitReadings],
+                    cal_times_utc: Sequence[int]) -> list[UnitCalibration | UnitFailure]:
+    """Fit, encode and judge each unit: its calibration, or what stopped it (the
+    ``InputError`` refusing its readings, or an arithmetic failure of its own). Units with
+    the same number of readings are calibrated side by side, each with the same result as
+    alone."""
+    out: list[UnitCalibration | UnitFailure | None] = [None] * len(units)
+    sizes: dict[int, list[int]] = {}
+    for i, u in enumerate(units):
+        sizes.setdefault(u.reference.size, []).append(i)
+    for members in sizes.values():
+        for row, result in _calibrate_alone_if_failed(
+                ctx, [units[i] for i in members], [cal_times_utc[i] for i in members]).items():
+            out[members[row]] = result
+    return [r for r in out if r is not None]
+
+
+def _calibrate_alone_if_failed(ctx: CalibrationContext, units: list[UnitReadings],
+                               cal_times: list[int]
+                               ) -> dict[int, UnitCalibration | UnitFailure]:
+    """A stack's units side by side; should the arithmetic fail (``ArithmeticError``,
+    ``ValueError``: a decomposition that does not converge), each unit again alone, so that
+    the failure is only its unit's."""
     try:
-        ctx.design.check_in_force(constants)     # what with_constants(constants) refuses
-    except DesignError as exc:
-        formats_ok = False
-        formats_reason = str(exc).split(": ", 1)[-1]
-    else:
-        codes = np.rint(u.raw_mean).astype(np.int64)
-        temps = np.rint(u.temperature_c * 100).astype(np.int64)
-        firmware = static_outputs(ctx.design, codes, temps, constants=constants)
-        output = np.multiply(firmware, ctx.resolution, dtype=np.float64)
-        error = output - u.reference
-    figures = _figures(ctx, fit, lay, u, error)
-    return UnitCalibration(
-        serial=u.serial, cal_time_utc=cal_time_utc, constants=constants,
-        formats_ok=formats_ok, formats_reason=formats_reason, figures=figures,
-        criteria=_criteria(ctx, u, figures, error), rounding=_rounding(ctx, constants, exact),
-        readings=u, output=output, linearity=fit.residual / abs(fit.b))
+        return dict(_calibrate_stack(ctx, UnitStack.of(units), cal_times))
+    except (ArithmeticError, ValueError):
+        if len(units) == 1:
+            raise
+    done: dict[int, UnitCalibration | UnitFailure] = {}
+    for i, (u, t) in enumerate(zip(units, cal_times, strict=True)):
+        try:
+            done[i] = _calibrate_stack(ctx, UnitStack.of([u]), [t])[0]
+        except (ArithmeticError, ValueError) as exc:
+            done[i] = exc
+    return done
+
+
+def _calibrate_stack(ctx: CalibrationContext, stack: UnitStack, cal_times: list[int]
+                     ) -> dict[int, UnitCalibration | InputError]:
+    """Every unit of a stack: row -> calibration or refusal."""
+    cal = ctx.design.spec.calibration
+    assert cal is not None
+    done: dict[int, UnitCalibration | InputError] = dict(refuse_rows(
+        stack, code_min=ctx.code_min, code_max=ctx.code_max,
+        adc_bits=ctx.design.spec.adc.bits, noise_counts=ctx.noise_counts,
+        max_noise_ratio=cal.max_noise_ratio))
+    rows = [r for r in range(len(stack)) if r not in done]
+    if not rows:
+        return done
+    rules = _point_rules(ctx)
+    kept = stack.take(rows)
+    for plan, members in plans(kept, ctx.resolution):
+        st = kept.take(members)
+        results = _calibrate_plan(ctx, st, plan, rules,
+                                  [cal_times[rows[m]] for m in members])
+        for j, result in results.items():
+            done[rows[members[j]]] = result
+    return done
+
+
+def _calibrate_plan(ctx: CalibrationContext, st: UnitStack, plan: PointPlan,
+                    rules: PointRules, cal_times: list[int]
+                    ) -> dict[int, UnitCalibration | InputError]:
+    """The units of one stack and point plan: row -> calibration or refusal."""
+    refused = refuse_points(st, plan, rules)
+    fits = _fit(ctx, st, refused)
+    rows = [r for r in range(len(st)) if r not in refused]
+    constants = _constants(ctx, st, fits, rows, refused)
+    u_count, n = st.mean.shape
+    output = np.full((u_count, n), np.nan)
+    in_force: dict[int, str] = {}
+    for r, (c, _) in constants.items():
+        try:
+            ctx.design.check_in_force(c)     # what with_constants(c) refuses
+        except DesignError as exc:
+            in_force[r] = str(exc).split(": ", 1)[-1]
+            continue
+        firmware = static_outputs(ctx.design, np.rint(st.mean[r]).astype(np.int64),
+                                  np.rint(st.temperature_c[r] * 100).astype(np.int64),
+                                  constants=c)
+        output[r] = np.multiply(firmware, ctx.resolution, dtype=np.float64)
+    error = output - st.reference
+    figures = _figures(ctx, fits, plan, st, error)
+    criteria = _criteria_rows(ctx, figures, st, error)
+    with np.errstate(all="ignore"):
+        linearity = fits.residual / np.abs(fits.b)[:, None]
+    done: dict[int, UnitCalibration | InputError] = dict(refused)
+    judged_keys = list(figures)
+    for r, (c, exact) in constants.items():
+        ok = r not in in_force
+        unit_figures = {key: figures[key][r] for key in judged_keys
+                        if key != "max_error" or ok}
+        done[r] = UnitCalibration(
+            serial=st.units[r].serial, cal_time_utc=cal_times[r], constants=c,
+            formats_ok=ok, formats_reason=in_force.get(r, ""), figures=unit_figures,
+            criteria=tuple([_criterion(key, label, values[r], limit, unit_, source)
+                            for key, label, values, limit, unit_, source in criteria]),
+            rounding=_rounding(ctx, c, exact), readings=st.units[r],
+            output=output[r] if ok else None, linearity=linearity[r])
+    return done
 
 
 # ----------------------------------------------------------------------------- CAL.json
