@@ -31,6 +31,7 @@ group's rows are inserted and committed together.
 from __future__ import annotations
 
 import fcntl
+import functools
 import hashlib
 import json
 import math
@@ -38,11 +39,13 @@ import multiprocessing
 import os
 import re
 import socket
-from collections.abc import Callable, Iterable, Iterator
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 from pathlib import Path
+
+import numpy as np
 
 from hosttool import __version__
 from hosttool.design.cached import cached_design
@@ -59,7 +62,13 @@ from hosttool.formats.readings import (
     unit_cal_time,
 )
 from hosttool.formats.standards import Standard, load_standards
-from hosttool.production.fit import CalibrationContext, calibrate_unit, point_limits
+from hosttool.production.fit import (
+    CalibrationContext,
+    UnitCalibration,
+    UnitFailure,
+    calibrate_units,
+    point_limits,
+)
 from hosttool.production.record import Record, Row
 from hosttool.production.record_open import open_record
 from hosttool.production.traceability import check_lot_standards, unit_standards
@@ -161,16 +170,61 @@ _POINT = '"direction": "%s", "output": %s, "error": %s, "limit": %s}'
 
 def prepare(ctx: CalibrationContext, unit: UnitReadings | RefusedRows,
             override: int | None) -> Prepared:
-    """Calibrate one unit and build its image bytes (pure: no files, no record).
+    """Calibrate one unit and build its image bytes (pure: no files, no record)."""
+    return prepare_units(ctx, [unit], override)[0]
 
-    Anything that goes wrong with this unit alone refuses it, with the reason, and never
-    the lot: bad input (``HostToolError``), and, should a unit still reach one, an
+
+def prepare_units(ctx: CalibrationContext, units: Sequence[UnitReadings | RefusedRows],
+                  override: int | None) -> list[Prepared]:
+    """Calibrate units side by side (``calibrate_units``) and build each one's image bytes
+    (pure: no files, no record).
+
+    Anything that goes wrong with one unit alone refuses it, with the reason, and never
+    the others: bad input (``HostToolError``), and, should a unit still reach one, an
     arithmetic failure (reported as a fault of the tool)."""
-    if isinstance(unit, RefusedRows):
-        return refused(unit.serial, unit.reason)
+    out: list[Prepared | None] = [None] * len(units)
+    readings: list[tuple[int, UnitReadings, int]] = []
+    for i, unit in enumerate(units):
+        if isinstance(unit, RefusedRows):
+            out[i] = refused(unit.serial, unit.reason)
+            continue
+        try:
+            readings.append((i, unit, unit_cal_time(unit, override)))
+        except HostToolError as exc:
+            out[i] = refused(unit.serial, str(exc))
+    results = calibrate_units(ctx, [u for _, u, _ in readings], [t for _, _, t in readings])
+    limits = _limit_texts(ctx, [u for _, u, _ in readings])
+    for (i, unit, cal_time), result in zip(readings, results, strict=True):
+        out[i] = _prepared(ctx, unit, cal_time, result, limits)
+    return [p for p in out if p is not None]
+
+
+def _limit_texts(ctx: CalibrationContext, units: Sequence[UnitReadings]) -> dict[float, str]:
+    """The JSON text of ``point_limits`` at each reference the units read ("null": none)."""
+    references = sorted({r for u in units for r in u.reference.tolist()})
+    values = point_limits(ctx, np.array(references, dtype=np.float64)).tolist()
+    return {r: "null" if v == math.inf else repr(v)
+            for r, v in zip(references, values, strict=True)}
+
+
+@functools.lru_cache(maxsize=256, typed=True)
+def _criterion_template(key: str, label: str, limit: float | None, unit: str,
+                        source: str) -> str:
+    """A criterion's JSON text with its value and verdict left as %s (what every unit's
+    row of that criterion shares)."""
+    def text(s: str) -> str:
+        return _TEXT(s).replace("%", "%%")
+    return _CRITERION % (text(key), text(label), "%s", _number(limit).replace("%", "%%"),
+                         text(unit), text(source), "%s")
+
+
+def _prepared(ctx: CalibrationContext, unit: UnitReadings, cal_time: int,
+              result: UnitCalibration | UnitFailure, limits: dict[float, str]) -> Prepared:
+    """One unit's record texts and, if it passed, its image bytes; or its refusal;
+    ``limits``: ``_limit_texts`` of at least this unit."""
     try:
-        cal_time = unit_cal_time(unit, override)
-        result = calibrate_unit(ctx, unit, cal_time_utc=cal_time)
+        if not isinstance(result, UnitCalibration):
+            raise result
         image = None
         if result.passed:
             block = ctx.block.encode(result.constants, serial=unit.serial,
@@ -182,17 +236,15 @@ def prepare(ctx: CalibrationContext, unit: UnitReadings | RefusedRows,
         return refused(unit.serial, f"{unit.where(0)}: serial {unit.serial}: the tool failed "
                        f"on this unit ({exc.__class__.__name__}: {exc}); please report it "
                        "with the readings")
-    criteria = [_CRITERION % (_TEXT(c.key), _TEXT(c.label), _number(c.value),
-                              _number(c.limit), _TEXT(c.unit), _TEXT(c.source),
-                              "true" if c.passed else "false") for c in result.criteria]
+    criteria = [_criterion_template(c.key, c.label, c.limit, c.unit, c.source)
+                % (_number(c.value), "true" if c.passed else "false") for c in result.criteria]
     n = unit.reference.size
     if result.output is None:
         output = error = ["null"] * n
     else:
         output = list(map(repr, result.output.tolist()))
         error = list(map(repr, (result.output - unit.reference).tolist()))
-    limit = ["null" if v == math.inf else repr(v)
-             for v in point_limits(ctx, unit.reference).tolist()]
+    limit = [limits[r] for r in unit.reference.tolist()]
     heads = _heads(unit)
     points = [head + _POINT % ("up" if up else "down", out, err, lim) for head, up, out, err, lim
               in zip(heads, unit.up.tolist(), output, error, limit, strict=True)]
@@ -426,13 +478,14 @@ class _Work:
     staging: Staging
 
     def chunk(self, units: list[UnitRows]) -> list[Prepared]:
-        """Check the rows of these units (at once), then calibrate, image and trace each,
-        and stage their images (on disk when this returns)."""
+        """Check the rows of these units, calibrate them side by side, image and trace
+        each, and stage their images (on disk when this returns)."""
         done = []
         images: dict[str, bytes] = {}
-        for unit in self.layout.check(units):
-            p = _traced(prepare(self.ctx, unit, self.override), unit, self.register,
-                        self.lot_ids)
+        checked = self.layout.check(units)
+        for unit, prepared in zip(checked, prepare_units(self.ctx, checked, self.override),
+                                  strict=True):
+            p = _traced(prepared, unit, self.register, self.lot_ids)
             if p.image is not None:
                 name = f"{p.serial}.hex"
                 images[name] = p.image
