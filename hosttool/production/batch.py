@@ -164,8 +164,9 @@ _CRITERION = ('{"key": %s, "label": %s, "value": %s, "limit": %s, "unit": %s, "s
               '"pass": %s}')
 #: A reading's object and a point's both start with its line, reference and temperature.
 _HEAD = '{"line": %d, "reference": %r, "temperature_c": %r, '
-_READING = '"raw_mean_counts": %r, "raw_std_counts": %r, "samples": %d, "direction": "%s"}'
-_POINT = '"direction": "%s", "output": %s, "error": %s, "limit": %s}'
+_READING = _HEAD + ('"raw_mean_counts": %r, "raw_std_counts": %r, "samples": %d, '
+                    '"direction": "%s"}')
+_POINT = _HEAD + '"direction": "%s", "output": %s, "error": %s, "limit": %s}'
 
 
 def prepare(ctx: CalibrationContext, unit: UnitReadings | RefusedRows,
@@ -207,15 +208,16 @@ def _limit_texts(ctx: CalibrationContext, units: Sequence[UnitReadings]) -> dict
             for r, v in zip(references, values, strict=True)}
 
 
-@functools.lru_cache(maxsize=256, typed=True)
-def _criterion_template(key: str, label: str, limit: float | None, unit: str,
-                        source: str) -> str:
-    """A criterion's JSON text with its value and verdict left as %s (what every unit's
-    row of that criterion shares)."""
+@functools.lru_cache(maxsize=64, typed=True)
+def _criteria_template(rows: tuple[tuple[str, str, float | None, str, str], ...]) -> str:
+    """The JSON text of a pass/fail table (key, label, limit, unit, source of each row)
+    with each row's value and verdict left as %s: what every unit's table shares."""
     def text(s: str) -> str:
         return _TEXT(s).replace("%", "%%")
-    return _CRITERION % (text(key), text(label), "%s", _number(limit).replace("%", "%%"),
-                         text(unit), text(source), "%s")
+    return "[" + ", ".join([_CRITERION % (text(key), text(label), "%s",
+                                          _number(limit).replace("%", "%%"), text(unit),
+                                          text(source), "%s")
+                            for key, label, limit, unit, source in rows]) + "]"
 
 
 def _prepared(ctx: CalibrationContext, unit: UnitReadings, cal_time: int,
@@ -236,25 +238,32 @@ def _prepared(ctx: CalibrationContext, unit: UnitReadings, cal_time: int,
         return refused(unit.serial, f"{unit.where(0)}: serial {unit.serial}: the tool failed "
                        f"on this unit ({exc.__class__.__name__}: {exc}); please report it "
                        "with the readings")
-    criteria = [_criterion_template(c.key, c.label, c.limit, c.unit, c.source)
-                % (_number(c.value), "true" if c.passed else "false") for c in result.criteria]
+    criteria = result.criteria
+    template = _criteria_template(tuple((c.key, c.label, c.limit, c.unit, c.source)
+                                        for c in criteria))
     n = unit.reference.size
     if result.output is None:
         output = error = ["null"] * n
     else:
         output = list(map(repr, result.output.tolist()))
         error = list(map(repr, (result.output - unit.reference).tolist()))
-    limit = [limits[r] for r in unit.reference.tolist()]
-    heads = _heads(unit)
-    points = [head + _POINT % ("up" if up else "down", out, err, lim) for head, up, out, err, lim
-              in zip(heads, unit.up.tolist(), output, error, limit, strict=True)]
+    lines, references = unit.lines.tolist(), unit.reference.tolist()
+    temperatures = unit.temperature_c.tolist()
+    directions = ["up" if up else "down" for up in unit.up.tolist()]
+    points = tuple(v for row in zip(lines, references, temperatures, directions, output, error,
+                                    [limits[r] for r in references], strict=True) for v in row)
+    readings = tuple(v for row in zip(lines, references, temperatures, unit.raw_mean.tolist(),
+                                      unit.raw_std.tolist(), unit.samples.tolist(), directions,
+                                      strict=True) for v in row)
     return Prepared(
         serial=unit.serial, refused="", verdict=result.verdict, reasons=result.reasons,
         cal_time_utc=format_time_utc(cal_time),
         constants=_CONSTANTS.encode(constants_json(result.constants)),
         figures=_FIGURES.encode(result.figures), image=image,
-        criteria="[" + ", ".join(criteria) + "]", points="[" + ", ".join(points) + "]",
-        readings=readings_json(unit, heads))
+        criteria=template % tuple(v for c in criteria
+                                  for v in (_number(c.value), "true" if c.passed else "false")),
+        points=_list_template(_POINT, n) % points,
+        readings=_list_template(_READING, n) % readings)
 
 
 def _number(value: float | None) -> str:
@@ -264,20 +273,10 @@ def _number(value: float | None) -> str:
     return json.dumps(value)
 
 
-def _heads(unit: UnitReadings) -> list[str]:
-    """The start of each reading's object: its line, reference and temperature."""
-    return [_HEAD % row for row in zip(unit.lines.tolist(), unit.reference.tolist(),
-                                       unit.temperature_c.tolist(), strict=True)]
-
-
-def readings_json(unit: UnitReadings, heads: list[str] | None = None) -> str:
-    """The unit's readings as read (the record keeps them), in file order: the JSON text of
-    a list of objects (line, reference, temperature_c, raw_mean_counts, raw_std_counts,
-    samples, direction); ``heads``: ``_heads(unit)`` when the caller has them already."""
-    rows = zip(_heads(unit) if heads is None else heads, unit.raw_mean.tolist(),
-               unit.raw_std.tolist(), unit.samples.tolist(), unit.up.tolist(), strict=True)
-    return "[" + ", ".join([head + _READING % (mean, std, samples, "up" if up else "down")
-                            for head, mean, std, samples, up in rows]) + "]"
+@functools.lru_cache(maxsize=64)
+def _list_template(item: str, n: int) -> str:
+    """The JSON text of a list of ``n`` objects written by the template ``item``."""
+    return "[" + ", ".join([item] * n) + "]"
 
 
 def _traced(p: Prepared, unit: UnitReadings | RefusedRows,
