@@ -71,3 +71,30 @@ def test_a_column_of_times_gives_what_each_time_gives_alone() -> None:
         except InputError as exc:
             assert refused[i] == str(exc).removeprefix(": ") and seconds[i] == 0
     assert len(refused) == 10
+
+
+def test_a_column_of_valid_z_times_is_read_at_once_with_the_same_seconds(
+        monkeypatch: pytest.MonkeyPatch) -> None:
+    # A column of valid "...Z" times from 1970 on is read as one array (days by the civil
+    # calendar's closed form). Source: calendar.timegm of each, over the whole range, with
+    # leap days, century years and the range's ends. The route time by time turns dates
+    # into days with datetime.date, made to fail here: the test fails unless the whole
+    # column took the array route.
+    rng = random.Random(11)
+    stamps = [TIME_MIN, TIME_MAX, 951_782_400, 4_107_542_399, 1_709_251_199] + \
+        [rng.randrange(TIME_MIN, TIME_MAX + 1) for _ in range(20_000)]
+    texts = [time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime(s)) for s in stamps]
+    expected = [calendar.timegm(datetime.strptime(t, "%Y-%m-%dT%H:%M:%SZ").timetuple())
+                for t in texts]
+
+    class NoDates:
+        def __init__(self, *args: int) -> None:
+            raise AssertionError("read time by time")
+
+    monkeypatch.setattr("hosttool.util.utctime.date", NoDates)
+    assert parse_times_utc(texts) == (expected, {})
+    # a time that does not exist, another form, or one before 1970 sends the column time
+    # by time
+    for odd in ("2100-02-29T00:00:00Z", "2025-03-04T08:15:00+00:00", "1969-12-31T23:59:59Z"):
+        with pytest.raises(AssertionError, match="time by time"):
+            parse_times_utc(texts[:5] + [odd])

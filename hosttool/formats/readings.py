@@ -108,6 +108,9 @@ def _columns(header: list[str], spec: Spec, source: str, line: int) -> dict[str,
 
 
 _NUMBER_RE = re.compile(r"[+-]?(?:[0-9]+(?:\.[0-9]*)?|\.[0-9]+)(?:[eE][+-]?[0-9]+)?")
+#: A whole column of such numbers, one per line (no cell holds a line break): one match
+#: instead of one per cell.
+_COLUMN_RE = re.compile(rf"{_NUMBER_RE.pattern}(?:\n{_NUMBER_RE.pattern})*")
 #: Stripped from both ends of a cell (and of a header name): only spaces and tabs, so any
 #: other control character stays in the cell and is refused by its column's check.
 CELL_PADDING = " \t"
@@ -156,7 +159,10 @@ class _Check:
 def _numbers(name: str, cells: list[str], low: float, high: float, span: str,
              unit: str = "") -> _Check:
     """A column of decimal numbers (ASCII, plain or exponent notation) within low .. high."""
-    parsed = [float(c) if _NUMBER_RE.fullmatch(c) else math.nan for c in cells]
+    if _COLUMN_RE.fullmatch("\n".join(cells)):
+        parsed = list(map(float, cells))
+    else:
+        parsed = [float(c) if _NUMBER_RE.fullmatch(c) else math.nan for c in cells]
     values = np.array(parsed, dtype=np.float64)
     with np.errstate(invalid="ignore"):
         bad = ~((values >= low) & (values <= high))
@@ -223,11 +229,26 @@ class UnitRows:
     lines: list[int]
     texts: list[str]
 
-    def cells(self, source: str) -> list[list[str]]:
-        """Each row's cells, padding stripped."""
-        return [[c.strip(CELL_PADDING) for c in (_split(t, source, n) if '"' in t
-                                                 else t.split(","))]
-                for n, t in zip(self.lines, self.texts, strict=True)]
+
+
+def _columns_of(units: Sequence[UnitRows], index: dict[str, int], source: str
+                ) -> dict[str, list[str]]:
+    """The cells of every row of these units by column (name -> cells in row order),
+    padding stripped. Rows without quotes (all of a usual file) are split together: every
+    row has the header's width (``split_readings`` checked it), so column ``i`` is every
+    width-th cell from ``i``."""
+    texts = [t for u in units for t in u.texts]
+    joined = ",".join(texts)
+    if '"' not in joined:
+        flat = joined.split(",")
+        if " " in joined or "\t" in joined:
+            flat = [c.strip(CELL_PADDING) for c in flat]
+        width = len(flat) // len(texts)
+        return {name: flat[i::width] for name, i in index.items()}
+    rows = [[c.strip(CELL_PADDING) for c in (_split(t, source, n) if '"' in t
+                                             else t.split(","))]
+            for u in units for n, t in zip(u.lines, u.texts, strict=True)]
+    return {name: [r[i] for r in rows] for name, i in index.items()}
 
 
 @dataclass(frozen=True)
@@ -253,16 +274,17 @@ class ReadingsLayout:
         its readings or its first refused row (in file order; within the row, the first
         refused column in the order of ``_checks``)."""
         lines = [n for u in units for n in u.lines]
-        rows = [r for u in units for r in u.cells(self.source)]
-        checks = _checks({name: [r[i] for r in rows] for name, i in self.index.items()},
-                         self.rules, "time_utc" in self.index)
-        bad_rows = np.zeros(len(rows), dtype=bool)
+        if not lines:
+            return []
+        columns = _columns_of(units, self.index, self.source)
+        checks = _checks(columns, self.rules, "time_utc" in self.index)
+        bad_rows = np.zeros(len(lines), dtype=bool)
         for check in checks:
             bad_rows |= check.bad
         cols = {check.name: check.values for check in checks}
         line_numbers = np.array(lines, dtype=np.int64)
         has_time = "time_utc" in self.index
-        standards = self.index.get("standards")
+        standards = columns.get("standards")
         out: list[UnitReadings | RefusedRows] = []
         first = 0
         for unit in units:
@@ -282,7 +304,7 @@ class ReadingsLayout:
                     samples=cols["samples"][idx], up=cols["direction"][idx],
                     cal_time_utc=int(cols["time_utc"][idx].max()) if has_time else None,
                     times_utc=cols["time_utc"][idx] if has_time else None,
-                    standards=tuple(tuple(r[standards].split()) for r in rows[idx])
+                    standards=tuple(tuple(cell.split()) for cell in standards[idx])
                     if standards is not None else ()))
             first = stop
         return out
