@@ -43,6 +43,7 @@ from collections.abc import Callable, Iterable, Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
+from itertools import chain
 from pathlib import Path
 
 import numpy as np
@@ -250,18 +251,19 @@ def _prepared(ctx: CalibrationContext, unit: UnitReadings, cal_time: int,
     lines, references = unit.lines.tolist(), unit.reference.tolist()
     temperatures = unit.temperature_c.tolist()
     directions = ["up" if up else "down" for up in unit.up.tolist()]
-    points = tuple(v for row in zip(lines, references, temperatures, directions, output, error,
-                                    [limits[r] for r in references], strict=True) for v in row)
-    readings = tuple(v for row in zip(lines, references, temperatures, unit.raw_mean.tolist(),
-                                      unit.raw_std.tolist(), unit.samples.tolist(), directions,
-                                      strict=True) for v in row)
+    points = tuple(chain.from_iterable(zip(lines, references, temperatures, directions, output,
+                                           error, [limits[r] for r in references],
+                                           strict=True)))
+    readings = tuple(chain.from_iterable(zip(lines, references, temperatures,
+                                             unit.raw_mean.tolist(), unit.raw_std.tolist(),
+                                             unit.samples.tolist(), directions, strict=True)))
     return Prepared(
         serial=unit.serial, refused="", verdict=result.verdict, reasons=result.reasons,
         cal_time_utc=format_time_utc(cal_time),
         constants=_CONSTANTS.encode(constants_json(result.constants)),
         figures=_FIGURES.encode(result.figures), image=image,
-        criteria=template % tuple(v for c in criteria
-                                  for v in (_number(c.value), "true" if c.passed else "false")),
+        criteria=template % tuple(chain.from_iterable(
+            (_number(c.value), "true" if c.passed else "false") for c in criteria)),
         points=_list_template(_POINT, n) % points,
         readings=_list_template(_READING, n) % readings)
 
