@@ -41,9 +41,9 @@ from numpy.linalg import _umath_linalg
 from numpy.typing import NDArray
 
 from hosttool import __version__
-from hosttool.design.model import static_outputs
+from hosttool.design.model import static_outputs_many
 from hosttool.design.resolve import LIN_FRAC, Design, UnitConstants
-from hosttool.errors import DesignError, InputError
+from hosttool.errors import InputError
 from hosttool.formats.calblock import BlockFormat
 from hosttool.formats.caljson import (
     FORMAT,
@@ -659,17 +659,18 @@ def _calibrate_plan(ctx: CalibrationContext, st: UnitStack, plan: PointPlan,
     constants = _constants(ctx, st, fits, rows, refused)
     u_count, n = st.mean.shape
     output = np.full((u_count, n), np.nan)
-    in_force: dict[int, str] = {}
-    for r, (c, _) in constants.items():
-        try:
-            ctx.design.check_in_force(c)     # what with_constants(c) refuses
-        except DesignError as exc:
-            in_force[r] = str(exc).split(": ", 1)[-1]
-            continue
-        firmware = static_outputs(ctx.design, np.rint(st.mean[r]).astype(np.int64),
-                                  np.rint(st.temperature_c[r] * 100).astype(np.int64),
-                                  constants=c)
-        output[r] = np.multiply(firmware, ctx.resolution, dtype=np.float64)
+    rows = list(constants)
+    reasons = ctx.design.check_in_force_many([constants[r][0] for r in rows])
+    in_force = {r: reason.split(": ", 1)[-1] for r, reason in zip(rows, reasons, strict=True)
+                if reason is not None}      # what with_constants refuses
+    run = [r for r in rows if r not in in_force]
+    if run:
+        index = np.asarray(run, dtype=np.intp)
+        firmware = static_outputs_many(
+            ctx.design, np.rint(st.mean[index]).astype(np.int64),
+            np.rint(st.temperature_c[index] * 100).astype(np.int64),
+            [constants[r][0] for r in run])
+        output[index] = np.multiply(firmware, ctx.resolution, dtype=np.float64)
     error = output - st.reference
     figures = _figures(ctx, fits, plan, st, error)
     criteria = _criteria_rows(ctx, figures, st, error)
