@@ -11,14 +11,17 @@ polynomial still applies and only zero and span are fitted. The fit is ordinary 
 squares (numpy.linalg.lstsq) over every reading, in [1, u] or [1, dT, u, u dT]. The
 "polynomial" mode then fits the per-unit C_0 .. C_n in the design's normalised variable
 w = s / 2^K to what the firmware must output. Every constant is rounded into the design's
-format and checked (``Design.check_in_force``: what ``Design.with_constants`` refuses);
-the verdict comes from the unit's readings run through the bit-exact static path
-(``model.static_outputs``) with those constants: what the firmware will output.
+format and checked (``Design.check_in_force_many``: what ``Design.with_constants``
+refuses); the verdict comes from the unit's readings run through the bit-exact static path
+(``model.static_outputs_many``) with those constants: what the firmware will output.
 
-A production line runs this once per unit, at a dozen readings each, where plain Python
-beats numpy's cost per call: the checks and figures work on lists. The fit itself stays
-numpy's (``lstsq``, and the SVD ``numpy.linalg.cond`` takes for the condition number): a
-closed form or one decomposition for both changes the last bits of the fitted zero and
+A production line calibrates thousands of units of a dozen readings each. They are
+calibrated side by side (``calibrate_units``): units with the same number of readings form
+a ``stack.UnitStack`` and every step is one numpy expression over all of them, in the
+order of a loop over one unit (a unit gives the same bits alone as in a stack; only the
+"polynomial" mode's C_n are fitted unit by unit). The fit stays numpy's (its ``lstsq``
+kernel over the stack, and the SVD ``numpy.linalg.cond`` takes for the condition number):
+a closed form or one decomposition for both changes the last bits of the fitted zero and
 span, which the record keeps.
 
 Refused (``InputError``, exit status 2): saturated readings, non-monotonic response,
