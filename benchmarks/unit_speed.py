@@ -1,8 +1,9 @@
-"""Per-unit cost of the production line: ``batch.prepare`` on one core.
+"""Per-unit cost of the production line: ``batch.prepare_units`` on one core.
 
-``prepare`` is the work a batch does for every unit before recording it: calibrate the
-unit's readings (fit, constants, the bit-exact static path, verdict), encode its block,
-build its Intel HEX image and the JSON texts its record row holds. This script times it
+``prepare_units`` is the work a batch does for every unit before recording it, on a chunk
+of ``batch.CHUNK`` units at a time: calibrate the units' readings side by side (fit,
+constants, the bit-exact static path, verdict), encode each block, build its Intel HEX
+image and the JSON texts its record row holds. This script times it
 over an invented lot (hosttool/production/synthetic_lot.py) of each example spec, in one
 process on one core, and prints the median over ``--repeat`` passes of milliseconds per
 unit (the first pass over the lot warms every cache and is not counted), in wall time
@@ -28,7 +29,7 @@ import numpy as np
 
 from hosttool.design.cached import cached_design
 from hosttool.formats.readings import UnitReadings, parse_readings
-from hosttool.production.batch import prepare
+from hosttool.production.batch import CHUNK, prepare_units
 from hosttool.production.fit import CalibrationContext
 from hosttool.production.synthetic_lot import lot_csv, random_truth
 from hosttool.spec.schema import load_spec
@@ -49,10 +50,10 @@ def lot(name: str, units: int) -> tuple[CalibrationContext, list[UnitReadings]]:
 
 
 def one_pass(ctx: CalibrationContext, units: list[UnitReadings]) -> tuple[float, float]:
-    """Seconds per unit of one pass of ``prepare`` over the lot: wall and CPU time."""
+    """Seconds per unit of one pass of ``prepare_units`` over the lot: wall and CPU time."""
     t0, c0 = time.perf_counter(), time.process_time()
-    for unit in units:
-        prepare(ctx, unit, None)
+    for first in range(0, len(units), CHUNK):
+        prepare_units(ctx, units[first:first + CHUNK], None)
     return (time.perf_counter() - t0) / len(units), (time.process_time() - c0) / len(units)
 
 
@@ -72,8 +73,8 @@ def main() -> None:
     for _ in range(args.repeat):
         for name, (ctx, units) in lots.items():
             times[name].append(one_pass(ctx, units))
-    print(f"batch.prepare, one core, {args.units} invented units, median of {args.repeat}, "
-          "ms per unit")
+    print(f"batch.prepare_units, chunks of {CHUNK}, one core, {args.units} invented units, "
+          f"median of {args.repeat}, ms per unit")
     print(f"  {'spec':16s} {'readings':>8s} {'wall':>7s} {'cpu':>7s} {'min wall':>8s}")
     for name, (_, units) in lots.items():
         readings = sum(u.reference.size for u in units) / len(units)
