@@ -32,6 +32,7 @@ from __future__ import annotations
 
 import fcntl
 import functools
+import gc
 import hashlib
 import json
 import math
@@ -508,23 +509,39 @@ def _work(units: list[UnitRows]) -> list[Prepared]:
 
 
 @contextmanager
-def _preparer(work: _Work, jobs: int, count: int
+def _preparer(work: _Work, jobs: int, units: list[UnitRows]
               ) -> Iterator[Callable[[list[UnitRows]], Iterator[Prepared]]]:
     """A function giving prepared units in file order, the rows checked, calibrated and
-    imaged ``CHUNK`` units at a time, in ``jobs`` worker processes if > 1.
+    imaged ``CHUNK`` units at a time, in ``jobs`` worker processes if > 1 (and ``units``,
+    the lot, has at least two chunks).
 
     The workers are forked before the record is opened (an SQLite connection must not
     cross a fork) and inherit the work's context instead of receiving it pickled; each
-    chunk of units travels as its rows' text."""
+    chunk of units travels as its rows' text. Before the fork, this process loads what a
+    first unit loads (``_load_once``) and freezes its objects for the garbage collector
+    (``gc.freeze``): the workers' collections then skip the objects they inherit, instead
+    of walking them (and copying every page they touch) again and again."""
     def chunks(units: list[UnitRows]) -> Iterator[list[UnitRows]]:
         return (units[i:i + CHUNK] for i in range(0, len(units), CHUNK))
 
-    if jobs <= 1 or count < 2 * CHUNK:
+    if jobs <= 1 or len(units) < 2 * CHUNK:
         yield lambda units: (p for c in chunks(units) for p in work.chunk(c))
         return
-    with multiprocessing.get_context("fork").Pool(
-            jobs, initializer=_start_worker, initargs=(work,)) as pool:
-        yield lambda units: (p for done in pool.imap(_work, chunks(units)) for p in done)
+    _load_once(work, units)
+    gc.freeze()
+    try:
+        with multiprocessing.get_context("fork").Pool(
+                jobs, initializer=_start_worker, initargs=(work,)) as pool:
+            yield lambda units: (p for done in pool.imap(_work, chunks(units)) for p in done)
+    finally:
+        gc.unfreeze()
+
+
+def _load_once(work: _Work, units: list[UnitRows]) -> None:
+    """Calibrate the first unit and drop the result: what a process loads on its first
+    unit (numba's compiled kernels from their on-disk cache, the modules they import,
+    about 0.3 s) is then loaded once, here, and inherited by every worker at the fork."""
+    prepare_units(work.ctx, work.layout.check(units[:1]), work.override)
 
 
 def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: str | Path | None,
@@ -549,7 +566,7 @@ def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: str | Path
     staging = Staging(out)
     try:
         work = _Work(ctx, readings.layout, cal_time, standards, lot_standards, staging)
-        with _preparer(work, jobs, len(readings.units)) as prepared:
+        with _preparer(work, jobs, readings.units) as prepared:
             record = open_record(db if db is not None else out / "production.sqlite")
             st = Station(record=record, folder=out, name=station or socket.gethostname(),
                          recalibrate=recalibrate, lot=lot or readings_path.stem,
