@@ -14,13 +14,16 @@ For each example spec:
   time) and ``hosttool check`` against a bare ``python -c pass``;
 
 then ``hosttool batch`` of invented hive_scale lots (13 readings per unit) into a fresh
-folder and record, a fresh process each (its start-up included). Ratios are Python / C
+folder and record, a fresh process each (its start-up included), after ``os.sync()`` and a
+pause (the disk's write-back of earlier runs would otherwise slow the fsyncs of this one),
+with the CPU time the batch used (user and system, all its processes), ``--batch-repeat``
+runs of each size. Ratios are Python / C
 (1.0: as fast as C). Each figure is the median of ``--repeat`` runs, Python and C
 interleaved. The load average is printed before and after (and beside each batch):
 figures taken on a busy machine are not worth much. Asserts nothing.
 
 Run: python benchmarks/speed.py [--repeat 5] [--samples 1000000] [--lots 1000,10000,100000]
-                                [--jobs 2] [--threads N] [--skip-batch]
+                                [--jobs 2] [--threads N] [--skip-batch] [--batch-repeat 1]
 """
 
 from __future__ import annotations
@@ -28,6 +31,7 @@ from __future__ import annotations
 import argparse
 import ctypes
 import os
+import resource
 import statistics
 import subprocess
 import sys
@@ -51,6 +55,8 @@ from hosttool.verify.sweep import CHUNK, sweep_static
 HERE = Path(__file__).resolve().parent
 EXAMPLES = HERE.parent / "examples"
 START_UTC = 1_741_075_200
+#: Seconds to wait after os.sync() before each batch run.
+SETTLE_S = 3.0
 _P32 = ctypes.POINTER(ctypes.c_int32)
 _PD = ctypes.POINTER(ctypes.c_double)
 #: The dynamic chain is timed at least this many times (each run a few milliseconds).
@@ -212,21 +218,29 @@ def bench_batch(args: argparse.Namespace) -> None:
     truths = [random_truth(f"HS{i:06d}", rng) for i in range(max(sizes))]
     print(f"batch, {spec_path.name}: `hosttool batch --jobs {args.jobs}` in a fresh process "
           "(start-up included), 13 readings per unit, a fresh folder and SQLite record")
-    print(f"  {'units':>7}  {'seconds':>8}  {'units/s':>8}  {'ms/unit':>8}  load  result")
+    print(f"  {'units':>7}  {'seconds':>8}  {'units/s':>8}  {'ms/unit':>8}  {'cpu s':>6}  "
+          f"{'user':>6}  {'sys':>6}  load  result")
     with tempfile.TemporaryDirectory() as tmp:
         root = Path(tmp)
-        for n in sizes:
+        for n, run in ((n, run) for n in sizes for run in range(args.batch_repeat)):
             readings = root / f"lot{n}.csv"
-            readings.write_text(lot_csv(design, truths[:n], seed=n, start_utc=START_UTC))
-            out = root / f"out{n}"
+            if run == 0:
+                readings.write_text(lot_csv(design, truths[:n], seed=n, start_utc=START_UTC))
+            out = root / f"out{n}-{run}"
+            os.sync()
+            time.sleep(SETTLE_S)
+            before = resource.getrusage(resource.RUSAGE_CHILDREN)
             t0 = time.perf_counter()
             done = subprocess.run([sys.executable, "-m", "hosttool", "batch", str(spec_path),
                                    str(readings), "--out", str(out), "--station", "bench",
                                    "--jobs", str(args.jobs)], capture_output=True, text=True,
                                   check=False)
             elapsed = time.perf_counter() - t0
+            after = resource.getrusage(resource.RUSAGE_CHILDREN)
+            user, system = after.ru_utime - before.ru_utime, after.ru_stime - before.ru_stime
             passed = sum(1 for _ in out.glob("*.hex"))
             print(f"  {n:7d}  {elapsed:8.2f}  {n / elapsed:8.0f}  {elapsed / n * 1e3:8.3f}  "
+                  f"{user + system:6.2f}  {user:6.2f}  {system:6.2f}  "
                   f"{os.getloadavg()[0]:4.1f}  {passed} images, exit {done.returncode}")
 
 
@@ -238,6 +252,7 @@ def main() -> None:
     parser.add_argument("--jobs", type=int, default=2)
     parser.add_argument("--lots", default="1000,10000,100000")
     parser.add_argument("--skip-batch", action="store_true")
+    parser.add_argument("--batch-repeat", type=int, default=1)
     parser.add_argument("--specs", default="hive_scale,fatigue_coupon")
     args = parser.parse_args()
     print(f"load average before: {os.getloadavg()[0]:.2f} ({os.cpu_count()} cores)")
