@@ -82,10 +82,11 @@ def _made(out: Path, since: float) -> int:
     ``out`` (by any run), or on disk in a staging folder (util/staging.py) since then (a
     killed run's staging folder stays until the next batch clears it)."""
     staged = 0
-    for path in out.glob(".hosttool-staging-*/*"):
+    for folder in out.glob(".hosttool-staging-*"):
         try:
-            staged += path.stat().st_mtime >= since
-        except FileNotFoundError:       # published or cleared meanwhile
+            for entry in os.scandir(folder):
+                staged += entry.stat().st_mtime >= since
+        except FileNotFoundError:       # published, or the folder removed, meanwhile
             pass
     return sum(1 for _ in out.glob("*.hex")) + staged
 
