@@ -142,6 +142,36 @@ def test_lot_images_record_and_idempotent_rerun(tmp_path: Path) -> None:
         == stamps
 
 
+def test_images_on_disk_are_put_back_refused_when_changed_adopted_or_replaced(
+        tmp_path: Path) -> None:
+    """Source: a clean run of the same lot (its images' bytes). A recorded image that went
+    missing is put back; one changed outside the tool refuses its unit and stays as it is;
+    an unrecorded file already under a new image's name (a killed run's) is kept when its
+    bytes are the image's (same inode) and replaced otherwise."""
+    readings = _lot(tmp_path / "lot.csv", _truths(4))
+    clean = tmp_path / "clean"
+    clean.mkdir()
+    assert _batch(readings, clean).returncode == 0
+    image = {p.name: p.read_bytes() for p in clean.glob("*.hex")}
+    assert len(image) == 4
+    (clean / "HV0000.r1.hex").unlink()
+    (clean / "HV0001.r1.hex").write_bytes(b":00000001FF\n")
+    again = _batch(readings, clean)
+    assert again.returncode == 2
+    assert "HV0001: REFUSED: HV0001.r1.hex: differs from the image its record names" \
+        in again.stdout
+    assert (clean / "HV0000.r1.hex").read_bytes() == image["HV0000.r1.hex"]
+    assert (clean / "HV0001.r1.hex").read_bytes() == b":00000001FF\n"
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / "HV0002.r1.hex").write_bytes(image["HV0002.r1.hex"])
+    (out / "HV0003.r1.hex").write_bytes(b"left by a killed run\n")
+    inode = (out / "HV0002.r1.hex").stat().st_ino
+    assert _batch(readings, out).returncode == 0
+    assert {p.name: p.read_bytes() for p in out.glob("*.hex")} == image
+    assert (out / "HV0002.r1.hex").stat().st_ino == inode
+
+
 def test_other_constants_need_recalibrate_and_keep_history(tmp_path: Path) -> None:
     """Source: the record's rows (sqlite3): a refused re-measurement changes nothing; with
     --recalibrate the old row stays, no longer current, and the old image is kept."""

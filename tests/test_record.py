@@ -47,6 +47,25 @@ def test_version_1_record_is_migrated_on_first_use(tmp_path: Path) -> None:
     db.close()
 
 
+def test_a_new_record_has_64_kib_pages_an_old_one_keeps_its_own(tmp_path: Path) -> None:
+    """Source: SQLite's page_size pragma (sqlite.org/pragma.html): it sets the page size
+    of a database not yet created; an existing one keeps its own until a VACUUM."""
+    new = tmp_path / "new.sqlite"
+    open_record(new).close()
+    old = tmp_path / "old.sqlite"
+    db = sqlite3.connect(old)
+    db.executescript(V1)
+    before = db.execute("PRAGMA page_size").fetchone()[0]
+    db.close()
+    open_record(old).close()
+    sizes = []
+    for path in (new, old):
+        db = sqlite3.connect(path)
+        sizes.append(db.execute("PRAGMA page_size").fetchone()[0])
+        db.close()
+    assert sizes == [65536, before] and before < 65536
+
+
 def test_reworked_failed_unit_is_recorded_again_without_recalibrate(tmp_path: Path) -> None:
     """A unit whose last record is a failure gets a new revision; passed units still need
     --recalibrate (the old code refused both)."""

@@ -347,6 +347,10 @@ class _Plan:
 
 
 def _existing(path: str) -> bytes | None:
+    """The bytes of the file at ``path``, None if there is none (usually: a new name,
+    answered without raising and catching an exception)."""
+    if not os.access(path, os.F_OK):
+        return None
     try:
         with open(path, "rb") as file:
             return file.read()
