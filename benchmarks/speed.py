@@ -16,8 +16,9 @@ For each example spec:
 then ``hosttool batch`` of invented hive_scale lots (13 readings per unit) into a fresh
 folder and record, a fresh process each (its start-up included), after ``os.sync()`` and a
 pause (the disk's write-back of earlier runs would otherwise slow the fsyncs of this one),
-with the CPU time the batch used (user and system, all its processes), ``--batch-repeat``
-runs of each size. Ratios are Python / C
+with the CPU time the batch used (user and system, all its processes) and a CPU probe
+taken just before (``python_probe``: a fixed pure-Python loop; the batch's time scales with
+it), ``--batch-repeat`` runs of each size. Ratios are Python / C
 (1.0: as fast as C). Each figure is the median of ``--repeat`` runs, Python and C
 interleaved. The load average is printed before and after (and beside each batch):
 figures taken on a busy machine are not worth much. Asserts nothing.
@@ -57,6 +58,8 @@ EXAMPLES = HERE.parent / "examples"
 START_UTC = 1_741_075_200
 #: Seconds to wait after os.sync() before each batch run.
 SETTLE_S = 3.0
+#: Additions of the CPU probe printed beside each batch run.
+PROBE_ADDITIONS = 5_000_000
 _P32 = ctypes.POINTER(ctypes.c_int32)
 _PD = ctypes.POINTER(ctypes.c_double)
 #: The dynamic chain is timed at least this many times (each run a few milliseconds).
@@ -208,6 +211,17 @@ def bench_chain(design: Design, lib: ctypes.CDLL, args: argparse.Namespace) -> N
           f"   ht_process in memory {tc / n * 1e9:6.1f} ns/sample   {same}")
 
 
+def python_probe() -> float:
+    """Seconds this machine takes right now for a fixed pure-Python loop (5,000,000
+    additions): printed beside each batch run, whose time scales with it (the CPU speed of
+    a shared virtual machine can change from one minute to the next)."""
+    t0 = time.perf_counter()
+    total = 0
+    for i in range(PROBE_ADDITIONS):
+        total += i
+    return time.perf_counter() - t0
+
+
 def bench_batch(args: argparse.Namespace) -> None:
     from hosttool.production.synthetic_lot import lot_csv, random_truth  # only with --lots
 
@@ -219,7 +233,7 @@ def bench_batch(args: argparse.Namespace) -> None:
     print(f"batch, {spec_path.name}: `hosttool batch --jobs {args.jobs}` in a fresh process "
           "(start-up included), 13 readings per unit, a fresh folder and SQLite record")
     print(f"  {'units':>7}  {'seconds':>8}  {'units/s':>8}  {'ms/unit':>8}  {'cpu s':>6}  "
-          f"{'user':>6}  {'sys':>6}  load  result")
+          f"{'user':>6}  {'sys':>6}  {'probe':>6}  load  result")
     with tempfile.TemporaryDirectory() as tmp:
         root = Path(tmp)
         for n, run in ((n, run) for n in sizes for run in range(args.batch_repeat)):
@@ -229,6 +243,7 @@ def bench_batch(args: argparse.Namespace) -> None:
             out = root / f"out{n}-{run}"
             os.sync()
             time.sleep(SETTLE_S)
+            probe = python_probe()
             before = resource.getrusage(resource.RUSAGE_CHILDREN)
             t0 = time.perf_counter()
             done = subprocess.run([sys.executable, "-m", "hosttool", "batch", str(spec_path),
@@ -240,7 +255,7 @@ def bench_batch(args: argparse.Namespace) -> None:
             user, system = after.ru_utime - before.ru_utime, after.ru_stime - before.ru_stime
             passed = sum(1 for _ in out.glob("*.hex"))
             print(f"  {n:7d}  {elapsed:8.2f}  {n / elapsed:8.0f}  {elapsed / n * 1e3:8.3f}  "
-                  f"{user + system:6.2f}  {user:6.2f}  {system:6.2f}  "
+                  f"{user + system:6.2f}  {user:6.2f}  {system:6.2f}  {probe:6.3f}  "
                   f"{os.getloadavg()[0]:4.1f}  {passed} images, exit {done.returncode}")
 
 
