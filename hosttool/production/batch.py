@@ -165,7 +165,7 @@ _TEXT = json.encoder.encode_basestring_ascii
 _CRITERION = ('{"key": %s, "label": %s, "value": %s, "limit": %s, "unit": %s, "source": %s, '
               '"pass": %s}')
 #: A reading's object and a point's both start with its line, reference and temperature.
-_HEAD = '{"line": %d, "reference": %r, "temperature_c": %r, '
+_HEAD = '{"line": %d, "reference": %s, "temperature_c": %s, '
 _READING = _HEAD + ('"raw_mean_counts": %r, "raw_std_counts": %r, "samples": %d, '
                     '"direction": "%s"}')
 _POINT = _HEAD + '"direction": "%s", "output": %s, "error": %s, "limit": %s}'
@@ -250,12 +250,13 @@ def _prepared(ctx: CalibrationContext, unit: UnitReadings, cal_time: int,
         output = list(map(repr, result.output.tolist()))
         error = list(map(repr, (result.output - unit.reference).tolist()))
     lines, references = unit.lines.tolist(), unit.reference.tolist()
-    temperatures = unit.temperature_c.tolist()
+    shown_references = list(map(repr, references))      # each written twice: made once
+    temperatures = list(map(repr, unit.temperature_c.tolist()))
     directions = ["up" if up else "down" for up in unit.up.tolist()]
-    points = tuple(chain.from_iterable(zip(lines, references, temperatures, directions, output,
-                                           error, [limits[r] for r in references],
+    points = tuple(chain.from_iterable(zip(lines, shown_references, temperatures, directions,
+                                           output, error, [limits[r] for r in references],
                                            strict=True)))
-    readings = tuple(chain.from_iterable(zip(lines, references, temperatures,
+    readings = tuple(chain.from_iterable(zip(lines, shown_references, temperatures,
                                              unit.raw_mean.tolist(), unit.raw_std.tolist(),
                                              unit.samples.tolist(), directions, strict=True)))
     return Prepared(
