@@ -25,6 +25,7 @@ figures taken on a busy machine are not worth much. Asserts nothing.
 
 Run: python benchmarks/speed.py [--repeat 5] [--samples 1000000] [--lots 1000,10000,100000]
                                 [--jobs 2] [--threads N] [--skip-batch] [--batch-repeat 1]
+                                [--specs hive_scale,fatigue_coupon]  ("": the batch alone)
 """
 
 from __future__ import annotations
@@ -271,7 +272,7 @@ def main() -> None:
     parser.add_argument("--specs", default="hive_scale,fatigue_coupon")
     args = parser.parse_args()
     print(f"load average before: {os.getloadavg()[0]:.2f} ({os.cpu_count()} cores)")
-    for name in args.specs.split(","):
+    for name in filter(None, args.specs.split(",")):     # --specs "": the batch alone
         bench_spec(name, args)
     if not args.skip_batch:
         bench_batch(args)
