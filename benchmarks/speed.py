@@ -18,7 +18,9 @@ folder and record, a fresh process each (its start-up included), after ``os.sync
 pause (the disk's write-back of earlier runs would otherwise slow the fsyncs of this one),
 with the CPU time the batch used (user and system, all its processes) and a CPU probe
 taken just before (``python_probe``: a fixed pure-Python loop; the batch's time scales with
-it), ``--batch-repeat`` runs of each size. Ratios are Python / C
+it), ``--batch-repeat`` runs of each size, in ``--dir`` (each image is a new file: where
+many files were deleted shortly before, creating files has been seen to cost the kernel
+several times more on a virtual machine's ext4 disk, so the folder matters). Ratios are Python / C
 (1.0: as fast as C). Each figure is the median of ``--repeat`` runs, Python and C
 interleaved. The load average is printed before and after (and beside each batch):
 figures taken on a busy machine are not worth much. Asserts nothing.
@@ -26,6 +28,7 @@ figures taken on a busy machine are not worth much. Asserts nothing.
 Run: python benchmarks/speed.py [--repeat 5] [--samples 1000000] [--lots 1000,10000,100000]
                                 [--jobs 2] [--threads N] [--skip-batch] [--batch-repeat 1]
                                 [--specs hive_scale,fatigue_coupon]  ("": the batch alone)
+                                [--dir FOLDER]
 """
 
 from __future__ import annotations
@@ -235,7 +238,7 @@ def bench_batch(args: argparse.Namespace) -> None:
           "(start-up included), 13 readings per unit, a fresh folder and SQLite record")
     print(f"  {'units':>7}  {'seconds':>8}  {'units/s':>8}  {'ms/unit':>8}  {'cpu s':>6}  "
           f"{'user':>6}  {'sys':>6}  {'probe':>6}  load  result")
-    with tempfile.TemporaryDirectory() as tmp:
+    with tempfile.TemporaryDirectory(dir=args.dir) as tmp:
         root = Path(tmp)
         for n, run in ((n, run) for n in sizes for run in range(args.batch_repeat)):
             readings = root / f"lot{n}.csv"
@@ -269,6 +272,9 @@ def main() -> None:
     parser.add_argument("--lots", default="1000,10000,100000")
     parser.add_argument("--skip-batch", action="store_true")
     parser.add_argument("--batch-repeat", type=int, default=1)
+    parser.add_argument("--dir", default=None,
+                        help="where the batch's lots and folders go (default: the system's "
+                        "temporary folder)")
     parser.add_argument("--specs", default="hive_scale,fatigue_coupon")
     args = parser.parse_args()
     print(f"load average before: {os.getloadavg()[0]:.2f} ({os.cpu_count()} cores)")
