@@ -15,6 +15,7 @@ as the per-unit check wrote them before it became the stack of one).
 from __future__ import annotations
 
 import re
+from collections.abc import Callable
 from pathlib import Path
 
 import numpy as np
@@ -90,17 +91,11 @@ def _random_constants(design: Design, rng: np.random.Generator) -> UnitConstants
         tc_span=_value(rng, INT32_MAX) if with_tc else 0)
 
 
-def _per_unit(design: Design, c: UnitConstants) -> str | None:
+def _refusal(check: Callable[[UnitConstants], object], c: UnitConstants) -> str | None:
+    """The text of the DesignError ``check(c)`` raises (``Design.check_in_force`` or
+    ``Design.with_constants``), None when it accepts ``c``."""
     try:
-        design.check_in_force(c)
-    except DesignError as exc:
-        return str(exc)
-    return None
-
-
-def _with_constants(design: Design, c: UnitConstants) -> str | None:
-    try:
-        design.with_constants(c)
+        check(c)
     except DesignError as exc:
         return str(exc)
     return None
@@ -123,11 +118,11 @@ def test_check_in_force_many_is_check_in_force_per_unit(name: str) -> None:
     assert len(reasons) == UNITS
     kinds = set()
     for c, reason in zip(constants, reasons, strict=True):
-        assert reason == _per_unit(design, c)
+        assert reason == _refusal(design.check_in_force, c)
         kinds.add(reason and re.sub(r"[-\d.e+]+", "#", reason))
     # every unit checked the straightforward way too (a Design built per unit)
     for c, reason in zip(constants[:60], reasons[:60], strict=True):
-        assert reason == _with_constants(design, c)
+        assert reason == _refusal(design.with_constants, c)
     assert None in kinds and len(kinds) >= 5, kinds
     assert design.check_in_force_many([]) == []
 
@@ -192,8 +187,8 @@ def test_every_refusal_is_reached_and_its_text_unchanged() -> None:
     ]
     for design, c, text in cases:
         expected = None if text is None else f"{design.spec.source}: {text}"
-        assert _per_unit(design, c) == expected
-        assert _with_constants(design, c) == expected
+        assert _refusal(design.check_in_force, c) == expected
+        assert _refusal(design.with_constants, c) == expected
         assert design.check_in_force_many([design.nominal, c, design.nominal]) \
             == [None, expected, None]
 
