@@ -144,15 +144,11 @@ def plans(stack: UnitStack, resolution: float) -> list[tuple[PointPlan, list[int
     np.put_along_axis(group, order, sorted_group, axis=1)
     lsb = np.rint(stack.reference / resolution).astype(np.int64)
     keys = np.concatenate([group, lsb, stack.up.astype(np.int64)], axis=1)
-    found: dict[bytes, tuple[PointPlan | None, list[int]]] = {}
+    found: dict[bytes, list[int]] = {}
     for r, key in enumerate(keys):
-        found.setdefault(key.tobytes(), (None, []))[1].append(r)
-    out = []
-    for _, rows in found.values():
-        r = rows[0]
-        out.append((PointPlan.of(group[r].tolist(), lsb[r].tolist(), stack.up[r].tolist()),
-                    rows))
-    return out
+        found.setdefault(key.tobytes(), []).append(r)
+    return [(PointPlan.of(group[rows[0]].tolist(), lsb[rows[0]].tolist(),
+                          stack.up[rows[0]].tolist()), rows) for rows in found.values()]
 
 
 def refuse_rows(stack: UnitStack, *, code_min: int, code_max: int, adc_bits: int,
