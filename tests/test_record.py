@@ -10,8 +10,10 @@ import json
 import sqlite3
 from pathlib import Path
 
+import pytest
 from test_production import _batch, _lot, _rows, _truths
 
+from hosttool.production import record_sqlite
 from hosttool.production.record import SCHEMA_VERSION, Filter
 from hosttool.production.record_open import open_record
 
@@ -82,3 +84,35 @@ def test_reworked_failed_unit_is_recorded_again_without_recalibrate(tmp_path: Pa
     readings = json.loads(str(rows[2]["readings"]))
     assert readings[0]["line"] > 0 and {"raw_mean_counts", "direction"} <= set(readings[0])
     assert second.stdout.count("already recorded as passed") == 2
+
+
+class _RefusingConnection:
+    """Answers ``PRAGMA journal_mode=WAL`` as SQLite does while another station makes the
+    same new file: "database is locked" at once, ``refusals`` times, then "wal"."""
+
+    def __init__(self, refusals: int, error: str = "database is locked"):
+        self.refusals, self.error, self.tries = refusals, error, 0
+
+    def execute(self, sql: str) -> _RefusingConnection:
+        assert sql == "PRAGMA journal_mode=WAL"
+        self.tries += 1
+        if self.tries <= self.refusals:
+            raise sqlite3.OperationalError(self.error)
+        return self
+
+    def fetchone(self) -> tuple[str]:
+        return ("wal",)
+
+
+def test_the_switch_to_the_log_is_tried_again_while_another_station_makes_the_file() -> None:
+    # SQLite refuses the switch to WAL with "database is locked" without its busy wait
+    # while another connection is making the file (seen with two stations starting a new
+    # record together; the busy handler's limits: sqlite.org/c3ref/busy_handler.html, from
+    # memory); anything else is not retried.
+    refusing = _RefusingConnection(3)
+    assert record_sqlite._write_ahead_log(refusing) == "wal"  # type: ignore[arg-type]
+    assert refusing.tries == 4
+    broken = _RefusingConnection(1, "disk I/O error")
+    with pytest.raises(sqlite3.OperationalError, match="disk I/O error"):
+        record_sqlite._write_ahead_log(broken)  # type: ignore[arg-type]
+    assert broken.tries == 1

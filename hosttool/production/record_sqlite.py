@@ -13,6 +13,7 @@ record.py.
 from __future__ import annotations
 
 import sqlite3
+import time
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
 from pathlib import Path
@@ -45,6 +46,27 @@ BUSY_TIMEOUT_S = 120.0
 PAGE_SIZE = 65536
 
 
+#: Seconds between tries of the switch to the write-ahead log while another station holds
+#: the new file.
+WAL_RETRY_S = 0.02
+
+
+def _write_ahead_log(db: sqlite3.Connection) -> str:
+    """Switch the file to the write-ahead log; returns the journal mode in force. While
+    another station is making the same new file, SQLite refuses the switch at once with
+    "database is locked" (its busy wait does not cover this step): tried again until
+    ``BUSY_TIMEOUT_S``."""
+    deadline = time.monotonic() + BUSY_TIMEOUT_S
+    while True:
+        try:
+            mode: str = db.execute("PRAGMA journal_mode=WAL").fetchone()[0]
+            return mode
+        except sqlite3.OperationalError as exc:
+            if "locked" not in str(exc) or time.monotonic() > deadline:
+                raise
+            time.sleep(WAL_RETRY_S)
+
+
 class SqliteRecord:
     """An open SQLite record (see record.Record for the interface)."""
 
@@ -54,7 +76,7 @@ class SqliteRecord:
         try:
             self.db = sqlite3.connect(path, timeout=BUSY_TIMEOUT_S, isolation_level=None)
             self.db.execute(f"PRAGMA page_size={PAGE_SIZE}")   # a new file's; else no-op
-            mode = self.db.execute("PRAGMA journal_mode=WAL").fetchone()[0]
+            mode = _write_ahead_log(self.db)
             if mode != "wal":
                 raise OutputError(f"{path}: cannot use a write-ahead log here ({mode})")
             self.db.execute("PRAGMA synchronous=FULL")
