@@ -1,7 +1,7 @@
 """Per-unit cost of the production line: ``batch.prepare_units`` on one core.
 
 ``prepare_units`` is the work a batch does for every unit before recording it, on a chunk
-of ``batch.CHUNK`` units at a time: calibrate the units' readings side by side (fit,
+of ``batch.PART`` units at a time: calibrate the units' readings side by side (fit,
 constants, the bit-exact static path, verdict), encode each block, build its Intel HEX
 image and the JSON texts its record row holds. This script times it
 over an invented lot (hosttool/production/synthetic_lot.py) of each example spec, in one
@@ -29,7 +29,7 @@ import numpy as np
 
 from hosttool.design.cached import cached_design
 from hosttool.formats.readings import UnitReadings, parse_readings
-from hosttool.production.batch import CHUNK, prepare_units
+from hosttool.production.batch import PART, prepare_units
 from hosttool.production.fit import CalibrationContext
 from hosttool.production.synthetic_lot import lot_csv, random_truth
 from hosttool.spec.schema import load_spec
@@ -52,8 +52,8 @@ def lot(name: str, units: int) -> tuple[CalibrationContext, list[UnitReadings]]:
 def one_pass(ctx: CalibrationContext, units: list[UnitReadings]) -> tuple[float, float]:
     """Seconds per unit of one pass of ``prepare_units`` over the lot: wall and CPU time."""
     t0, c0 = time.perf_counter(), time.process_time()
-    for first in range(0, len(units), CHUNK):
-        prepare_units(ctx, units[first:first + CHUNK], None)
+    for first in range(0, len(units), PART):
+        prepare_units(ctx, units[first:first + PART], None)
     return (time.perf_counter() - t0) / len(units), (time.process_time() - c0) / len(units)
 
 
@@ -73,7 +73,7 @@ def main() -> None:
     for _ in range(args.repeat):
         for name, (ctx, units) in lots.items():
             times[name].append(one_pass(ctx, units))
-    print(f"batch.prepare_units, chunks of {CHUNK}, one core, {args.units} invented units, "
+    print(f"batch.prepare_units, chunks of {PART}, one core, {args.units} invented units, "
           f"median of {args.repeat}, ms per unit")
     print(f"  {'spec':16s} {'readings':>8s} {'wall':>7s} {'cpu':>7s} {'min wall':>8s}")
     for name, (_, units) in lots.items():

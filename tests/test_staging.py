@@ -62,6 +62,58 @@ def test_every_image_and_the_folder_are_fsynced_never_the_machine(
     assert [p.name for p in out.iterdir() if p.name.startswith(".hosttool-staging")] == []
 
 
+def test_a_chunk_returns_only_when_all_its_images_are_on_disk(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    # A chunk's parts are flushed while the next part is calibrated: slow fsyncs (10 ms)
+    # must all have completed when the chunk returns its units to the recorder.
+    completed: list[str] = []
+    real_fsync = os.fsync
+
+    def slow_fsync(fd: int) -> None:
+        name = os.readlink(f"/proc/self/fd/{fd}")
+        time.sleep(0.01)
+        real_fsync(fd)
+        completed.append(name)
+
+    chunk = batch._Work.chunk
+    returned: list[tuple[int, int]] = []
+
+    def checked_chunk(self: batch._Work, units: list) -> list:
+        done = chunk(self, units)
+        staged = [p for p in done if p.staged is not None]
+        returned.append((len(staged), sum(1 for p in staged if any(
+            c.endswith(f"/{p.staged}") for c in completed))))
+        return done
+
+    monkeypatch.setattr(staging.os, "fsync", slow_fsync)
+    monkeypatch.setattr(batch._Work, "chunk", checked_chunk)
+    batch.run_batch(SPEC, _lot(tmp_path / "lot.csv", 2 * batch.PART + 10),
+                    out=tmp_path / "out", db=None, station="t", recalibrate=False,
+                    cal_time=None, jobs=1)
+    assert returned and all(staged == durable > 0 for staged, durable in returned)
+
+
+def test_a_failed_fsync_is_one_line_and_every_file_is_closed(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    real_fsync = os.fsync
+    calls: list[int] = []
+
+    def failing_fsync(fd: int) -> None:
+        calls.append(fd)
+        if len(calls) == 2:
+            raise OSError(5, "Input/output error")
+        real_fsync(fd)
+
+    monkeypatch.setattr(staging.os, "fsync", failing_fsync)
+    stage = staging.Staging(tmp_path)
+    open_before = len(os.listdir("/proc/self/fd"))
+    flushing = stage.start({f"U{i}.hex": b":00000001FF\n" for i in range(5)})
+    with pytest.raises(staging.OutputError, match=r"cannot write an image: Input/output error$"):
+        flushing.wait()
+    assert len(calls) == 5 and len(os.listdir("/proc/self/fd")) == open_before
+    stage.close()
+
+
 def _hold(folder: Path) -> subprocess.Popen[bytes]:
     """A live process holding a staging folder of its own in ``folder``."""
     code = ("import sys, time; from pathlib import Path; from hosttool.util.staging import "

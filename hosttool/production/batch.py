@@ -2,8 +2,9 @@
 
 The main process checks the readings file as a whole and splits it by unit. Per unit, in
 chunks of ``CHUNK`` (in worker processes with ``jobs`` > 1): check its rows, calibrate
-(fit.py) and, if it passed, encode the block and its Intel HEX image in memory, and name
-the reference standards used. The main process then records units in groups
+(fit.py, ``PART`` units side by side) and, if it passed, encode the block and its Intel HEX
+image in memory, name the reference standards used, and stage the image (on disk before
+the chunk is handed back). The main process then records units in groups
 of ``GROUP``, each group in one transaction of the record (SQLite or PostgreSQL, record.py)
 holding the group's serials and the output folder's lock: each unit is decided from the
 record, the group's staged images are published (renames, one folder fsync), then the
@@ -80,8 +81,11 @@ from hosttool.util.staging import Staging, clear_stale, fsync_folder
 from hosttool.util.text import control_character, shown
 from hosttool.util.utctime import format_time_utc, parse_time_utc
 
-#: Units handed to a worker process at a time (with jobs > 1).
-CHUNK = 64
+#: Units calibrated side by side, whose images are then flushed together.
+PART = 64
+#: Units handed to a worker process at a time (with jobs > 1): parts whose fsyncs run while
+#: the next part is calibrated.
+CHUNK = 2 * PART
 #: Units recorded per hold of the folder lock (their images share one flush).
 GROUP = 128
 #: The lock file in the output folder that stations take in turn for each group.
@@ -485,20 +489,26 @@ class _Work:
     staging: Staging
 
     def chunk(self, units: list[UnitRows]) -> list[Prepared]:
-        """Check the rows of these units, calibrate them side by side, image and trace
-        each, and stage their images (on disk when this returns)."""
+        """Check the rows of these units, then, ``PART`` units at a time, calibrate them side
+        by side, image and trace each, and stage their images: a part's fsyncs run while
+        the next part is calibrated; all are on disk when this returns."""
         done = []
-        images: dict[str, bytes] = {}
+        flushing = []
         checked = self.layout.check(units)
-        for unit, prepared in zip(checked, prepare_units(self.ctx, checked, self.override),
-                                  strict=True):
-            p = _traced(prepared, unit, self.register, self.lot_ids)
-            if p.image is not None:
-                name = f"{p.serial}.hex"
-                images[name] = p.image
-                p = replace(p, staged=name)
-            done.append(p)
-        self.staging.stage(images)
+        for first in range(0, len(checked), PART):
+            part = checked[first:first + PART]
+            images: dict[str, bytes] = {}
+            for unit, prepared in zip(part, prepare_units(self.ctx, part, self.override),
+                                      strict=True):
+                p = _traced(prepared, unit, self.register, self.lot_ids)
+                if p.image is not None:
+                    name = f"{p.serial}.hex"
+                    images[name] = p.image
+                    p = replace(p, staged=name)
+                done.append(p)
+            flushing.append(self.staging.start(images))
+        for part_flushing in flushing:
+            part_flushing.wait()
         return done
 
 

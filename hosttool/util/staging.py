@@ -1,11 +1,11 @@
 """Files made durable where they are made, published in groups where they are recorded.
 
 A production batch makes each unit's image in a worker process and records it in the main
-one. The worker writes the images of each chunk of units into the batch's own *staging
-folder* inside the output folder and fsyncs them there, all in flight at once on a pool of
-threads (issued after the chunk is computed: threads waking up in the middle of the
-computation would fight it for the interpreter lock): the data is on disk before the
-recording process sees it.
+one. The worker writes the images of each part of a chunk of units into the batch's own
+*staging folder* inside the output folder and fsyncs them there, all of a part in flight at
+once on a pool of threads while the worker computes the chunk's next part (``start``), and
+waits for them before handing the chunk back (``Flushing.wait``): the data is on disk
+before the recording process sees it.
 The recording process then renames the images of a group into the output folder and fsyncs
 the folder once (the names are on disk), before the group's rows commit. Only these files
 are flushed: ``os.sync()`` would wait for every pending write of the whole machine.
@@ -24,13 +24,13 @@ import os
 import shutil
 import tempfile
 import time
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import Future, ThreadPoolExecutor
 from pathlib import Path
 
 from hosttool.errors import OutputError
 
 #: Most fsyncs in flight at once in one process (issued together, the file system can
-#: commit them in one journal write): a whole chunk of the batch's units.
+#: commit them in one journal write): a whole part of a chunk of the batch's units.
 FSYNC_THREADS = 64
 STAGING_PREFIX = ".hosttool-staging-"
 OWNER = ".owner"
@@ -60,6 +60,22 @@ def fsync_folder(folder: Path) -> None:
         raise OutputError(f"{folder}: cannot flush the folder: {exc.strerror}") from None
 
 
+class Flushing:
+    """Files written and their fsyncs in flight (``Staging.start``)."""
+
+    def __init__(self, folder: Path, fds: list[int], syncs: list[Future[None]]):
+        self._folder, self._fds, self._syncs = folder, fds, syncs
+
+    def wait(self) -> None:
+        """Return once every file is on disk (its fsync done); close them."""
+        failed = [exc for exc in (sync.exception() for sync in self._syncs) if exc is not None]
+        for fd in self._fds:
+            os.close(fd)
+        if failed:
+            strerror = getattr(failed[0], "strerror", str(failed[0]))
+            raise OutputError(f"{self._folder}: cannot write an image: {strerror}")
+
+
 class Staging:
     """A batch's staging folder inside ``folder``, locked for the batch's life."""
 
@@ -77,6 +93,11 @@ class Staging:
     def stage(self, files: dict[str, bytes]) -> None:
         """Write each file (name -> bytes) into the staging folder; when this returns,
         they are all on disk (their fsyncs issued together on this process's threads)."""
+        self.start(files).wait()
+
+    def start(self, files: dict[str, bytes]) -> Flushing:
+        """Write each file (name -> bytes) into the staging folder and issue their fsyncs on
+        this process's threads; they are on disk once ``wait`` of the result returns."""
         fds: list[int] = []
         try:
             for name, data in files.items():
@@ -85,13 +106,12 @@ class Staging:
                 view = memoryview(data)
                 while view:
                     view = view[os.write(fds[-1], view):]
-            list(fsync_pool().map(os.fsync, fds))
         except OSError as exc:
-            raise OutputError(f"{self.path}: cannot write {exc.filename or 'an image'}: "
-                              f"{exc.strerror}") from None
-        finally:
             for fd in fds:
                 os.close(fd)
+            raise OutputError(f"{self.path}: cannot write {exc.filename or 'an image'}: "
+                              f"{exc.strerror}") from None
+        return Flushing(self.path, fds, [fsync_pool().submit(os.fsync, fd) for fd in fds])
 
     def publish(self, name: str, final: str) -> None:
         """Rename the staged file ``name`` to ``final`` (in the output folder; durable once
