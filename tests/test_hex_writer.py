@@ -16,6 +16,7 @@ import bincopy
 import pytest
 from intelhex import IntelHex
 
+from hosttool.formats import hexfile
 from hosttool.formats.hexfile import hex_text, intel_hex
 
 #: (address, size): the examples' areas, 16-byte aligned and not, a record ending exactly at
@@ -53,6 +54,24 @@ def test_one_block_as_intelhex_writes_it_and_bincopy_reads_it(address: int, size
     assert binfile.minimum_address == address
     assert binfile.maximum_address == address + size
     assert binfile.as_binary() == data
+
+
+@pytest.mark.parametrize(("address", "size"), CASES)
+def test_a_units_block_image_is_intelhexs_image_of_the_padded_area(
+        address: int, size: int, monkeypatch: pytest.MonkeyPatch) -> None:
+    """Source: intelhex, the text of the area (the block, then erased bytes) for blocks
+    filling none, part or all of it; block_hex writes anew only the records holding the
+    block's bytes."""
+    monkeypatch.setattr(hexfile, "block_area", lambda design: (address, size))
+    for block_size in sorted({1, 15, 16, 17, size // 2, size - 1, size} - {0}):
+        if block_size > size:
+            continue
+        for seed in range(3):
+            block = _data(block_size, seed * 7919 + block_size)
+            reference = IntelHex()
+            reference.frombytes(block + b"\xff" * (size - block_size), offset=address)
+            assert hexfile.block_hex(None, block).decode() == _intelhex_text(reference), \
+                (address, size, block_size)
 
 
 def test_records_follow_the_specification() -> None:

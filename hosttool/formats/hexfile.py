@@ -17,6 +17,7 @@ bincopy).
 
 from __future__ import annotations
 
+import functools
 from pathlib import Path
 
 from intelhex import IntelHex, IntelHexError
@@ -120,9 +121,36 @@ def hex_text(image: IntelHex) -> str:
 
 
 def block_hex(design: Design, block: bytes) -> bytes:
-    """The Intel HEX image of the padded block alone, as ASCII bytes (one unit of a lot)."""
+    """The Intel HEX image of the padded block alone, as ASCII bytes (one unit of a lot):
+    ``intel_hex`` of the area, only its records holding the block's bytes written anew."""
     address, size = block_area(design)
-    return intel_hex([(address, _filled(block, size))]).encode("ascii")
+    area = _filled(block, size)
+    digits = area.hex().upper()
+    lines = [item if isinstance(item, str) else
+             f"{item[0]}{digits[2 * item[1]:2 * item[2]]}"
+             f"{-(item[3] + sum(area[item[1]:item[2]])) & 0xFF:02X}"
+             for item in _area_plan(address, size, len(block))]
+    return ("\n".join(lines) + "\n").encode("ascii")
+
+
+@functools.lru_cache(maxsize=16)
+def _area_plan(address: int, size: int, block_size: int
+               ) -> tuple[str | tuple[str, int, int, int], ...]:
+    """The lines ``intel_hex`` writes for ``size`` bytes at ``address`` whose first
+    ``block_size`` change from unit to unit: a data record holding some of them as (its
+    start ``:LLAAAA00``, first and end offset in the area, its bytes' checksum part), any
+    other line (address records, records of erased bytes alone, the end) as its text."""
+    plan: list[str | tuple[str, int, int, int]] = []
+    pos = 0
+    for line in intel_hex([(address, bytes([ERASED]) * size)]).splitlines():
+        if line[7:9] != "00":
+            plan.append(line)
+            continue
+        count, low = int(line[1:3], 16), int(line[3:7], 16)
+        plan.append((line[:9], pos, pos + count, count + (low >> 8) + (low & 0xFF))
+                    if pos < block_size else line)
+        pos += count
+    return tuple(plan)
 
 
 def read_hex(path: Path) -> IntelHex:
