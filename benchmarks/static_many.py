@@ -1,7 +1,7 @@
 """A stack of units at once against unit by unit: the constants' check and the static path.
 
 ``Design.check_in_force_many`` and ``model.static_outputs_many`` do for a stack of U units
-what ``Design.check_in_force`` and ``model.static_outputs`` do per unit (a batch's worker
+what ``Design.check_in_force`` and ``model.static_integer`` do per unit (a batch's worker
 calibrates its units in stacks). This script times both ways on hive_scale with invented
 constants near the nominal ones and random codes and temperatures, U units of n readings
 per stack, and prints the median over ``--repeat`` passes of microseconds per unit, in the
@@ -24,7 +24,7 @@ from pathlib import Path
 import numpy as np
 
 from hosttool.design.cached import cached_design
-from hosttool.design.model import static_outputs, static_outputs_many
+from hosttool.design.model import static_integer, static_outputs_many
 from hosttool.design.resolve import Design, UnitConstants
 from hosttool.spec.schema import load_spec
 
@@ -60,7 +60,7 @@ def stacked_check(design: Design, stack: Stack) -> None:
 def per_unit_outputs(design: Design, stack: Stack) -> None:
     constants, codes, temps = stack
     for i, c in enumerate(constants):
-        static_outputs(design, codes[i], temps[i], constants=c)
+        static_integer(design, codes[i], temps[i], constants=c)
 
 
 def stacked_outputs(design: Design, stack: Stack) -> None:
@@ -70,7 +70,7 @@ def stacked_outputs(design: Design, stack: Stack) -> None:
 WAYS: dict[str, Callable[[Design, Stack], None]] = {
     "check_in_force per unit": per_unit_check,
     "check_in_force_many": stacked_check,
-    "static_outputs per unit": per_unit_outputs,
+    "static_integer per unit": per_unit_outputs,
     "static_outputs_many": stacked_outputs,
 }
 

@@ -20,7 +20,7 @@ from test_prepare_exact import FAILING, START, VARIANTS
 from hosttool.design.resolve import make_design
 from hosttool.formats.readings import RefusedRows, split_readings, unit_cal_time
 from hosttool.production import fit
-from hosttool.production.batch import prepare, prepare_units
+from hosttool.production.batch import prepare_units
 from hosttool.production.fit import CalibrationContext, UnitCalibration, calibrate_unit
 from hosttool.production.synthetic_lot import lot_csv, random_truth
 from hosttool.spec.schema import parse_spec
@@ -98,7 +98,7 @@ def test_a_unit_gives_the_same_calibration_in_a_lot_as_alone(variant: str) -> No
 def test_prepare_units_gives_what_prepare_gives_alone() -> None:
     ctx, checked = _lot("hive_scale", 100)
     together = prepare_units(ctx, checked, None)
-    assert [vars(p) for p in together] == [vars(prepare(ctx, u, None)) for u in checked]
+    assert [vars(p) for p in together] == [vars(prepare_units(ctx, [u], None)[0]) for u in checked]
     assert any(p.refused for p in together) and any(p.image for p in together)
 
 

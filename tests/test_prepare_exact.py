@@ -1,14 +1,15 @@
-"""``batch.prepare`` gives exactly the record the straightforward route gives.
+"""``batch.prepare_units`` gives exactly the record the straightforward route gives.
 
-prepare is the per-unit work of a lot, written for speed (templated JSON texts, its own
-Intel HEX writer, the block's design part made once, the constants checked without building
-a Design per unit, figures reduced on lists). Every field it returns is compared here, byte
-for byte, with the route it replaced, on small invented lots of every linearisation mode,
-with and without temperature compensation, with an OIML class, and with units that fail
-their limits or whose constants leave their formats. Sources: ``json.dumps`` of the row's
-objects, intelhex's ``write_hex_file`` of the padded block, ``calblock.decode`` and a fresh
-format identity for the block, ``Design.with_constants`` and the static path of that
-Design for outputs and verdicts, numpy reductions for the figures.
+prepare_units is the per-unit work of a lot, written for speed (templated JSON texts, its
+own Intel HEX writer, the block's design part made once, the constants checked without
+building a Design per unit, units calibrated side by side). Every field it returns is
+compared here, byte for byte, with the route it replaced, on small invented lots of every
+linearisation mode, with and without temperature compensation, with an OIML class, and with
+units that fail their limits or whose constants leave their formats. Sources:
+``json.dumps`` of the row's objects, intelhex's ``write_hex_file`` of the padded block,
+``calblock.decode`` and a fresh format identity for the block, ``Design.with_constants``
+and the static path of that Design for outputs and verdicts, numpy reductions for the
+figures.
 """
 
 from __future__ import annotations
@@ -29,7 +30,7 @@ from hosttool.formats.calblock import decode, format_identity
 from hosttool.formats.caljson import constants_json
 from hosttool.formats.readings import parse_readings, unit_cal_time
 from hosttool.physics.oiml import mpe_intervals
-from hosttool.production.batch import prepare
+from hosttool.production.batch import prepare_units
 from hosttool.production.fit import CalibrationContext, calibrate_unit, point_limits
 from hosttool.production.synthetic_lot import UnitTruth, lot_csv, random_truth
 from hosttool.spec.schema import parse_spec
@@ -149,7 +150,7 @@ def test_prepare_gives_the_record_of_the_straightforward_route(variant: str) -> 
                               "lot.csv")
     verdicts, outside = set(), 0
     for serial, unit in readings.units.items():
-        prepared = prepare(ctx, unit, None)
+        prepared = prepare_units(ctx, [unit], None)[0]
         assert vars(prepared) == {**_old_route(ctx, design, unit), "staged": None}, serial
         outside += not _check_result(ctx, design, unit)
         verdicts.add(prepared.verdict)

@@ -4,12 +4,12 @@
 to ``Design.check_in_force`` and to the straightforward route ``Design.with_constants``
 unit by unit: the same units in force, each refusal the same text.
 ``model.static_outputs_many`` (the static path of a stack in one compiled call) is held to
-``model.static_outputs`` of each unit and, for a few units, to ``static_integer`` of the
-unit's own Design. Both over random constants (inside, at and beyond every limit, and
-beyond int64) for the example specs and for specs of every linearisation mode with and
-without temperature compensation, with codes at the ADC's rails and temperatures beyond
-the clamp range. The refusal texts are also checked letter for letter (the messages
-as the per-unit check wrote them before it became the stack of one).
+``model.static_integer`` of each unit with its constants and, for a few units, to
+``static_integer`` of the unit's own Design. Both over random constants (inside, at and
+beyond every limit, and beyond int64) for the example specs and for specs of every
+linearisation mode with and without temperature compensation, with codes at the ADC's rails
+and temperatures beyond the clamp range. The refusal texts are also checked letter for
+letter (the messages as the per-unit check wrote them before it became the stack of one).
 """
 
 from __future__ import annotations
@@ -21,7 +21,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from hosttool.design.model import static_integer, static_outputs, static_outputs_many
+from hosttool.design.model import static_integer, static_outputs_many
 from hosttool.design.resolve import Design, UnitConstants, make_design, offset_limit
 from hosttool.errors import DesignError
 from hosttool.spec.schema import parse_spec
@@ -207,19 +207,20 @@ def test_static_outputs_many_is_static_outputs_per_unit(name: str) -> None:
     outputs = static_outputs_many(design, codes, temps, units)
     assert outputs.shape == codes.shape and outputs.dtype == np.int64
     for i, c in enumerate(units):
-        assert np.array_equal(outputs[i], static_outputs(design, codes[i], temps[i],
-                                                         constants=c))
+        assert np.array_equal(outputs[i], static_integer(design, codes[i], temps[i],
+                                                         constants=c).output)
     # the straightforward route: the unit's own Design, static_integer's outputs
     for i in range(0, len(units), len(units) // 8):
         own = design.with_constants(units[i])
         assert np.array_equal(outputs[i], static_integer(own, codes[i], temps[i]).output)
-    # without temperatures: each unit at the reference temperature, as static_outputs
+    # without temperatures: each unit at the reference temperature, as static_integer
     plain = static_outputs_many(design, codes, None, units)
     for i, c in enumerate(units):
-        assert np.array_equal(plain[i], static_outputs(design, codes[i], None, constants=c))
+        assert np.array_equal(plain[i],
+                              static_integer(design, codes[i], None, constants=c).output)
 
 
-def test_static_outputs_many_refuses_what_static_outputs_refuses() -> None:
+def test_static_outputs_many_refuses_what_static_integer_refuses() -> None:
     design = _design("hive_scale")
     c = design.nominal
     good = np.full((2, READINGS), design.code_max, dtype=np.int64)
@@ -227,7 +228,7 @@ def test_static_outputs_many_refuses_what_static_outputs_refuses() -> None:
         bad = good.copy()
         bad[1, 5] = code
         with pytest.raises(ValueError, match="24-bit values"):
-            static_outputs(design, bad[1], None, constants=c)
+            static_integer(design, bad[1], None, constants=c)
         with pytest.raises(ValueError, match="24-bit values"):
             static_outputs_many(design, bad, None, [c, c])
     with pytest.raises(ValueError, match="2-D array"):

@@ -545,21 +545,12 @@ def static_integer(design: Design, codes: ArrayLike, temps_centi: ArrayLike | No
     return run
 
 
-def static_outputs(design: Design, codes: ArrayLike, temps_centi: ArrayLike | None = None,
-                   *, constants: UnitConstants | None = None) -> I64:
-    """The outputs of ``static_integer`` alone, without the per-node figures (a production
-    line's verdict, once per unit)."""
-    x, t = _inputs(design, codes, temps_centi)
-    p = static_params(design, constants=constants)
-    out: I64 = _static_run(x, _NO_TEMPS if t is None else t, t is not None, p.ints, p.lin)[0]
-    return out
-
-
 def static_outputs_many(design: Design, codes: ArrayLike, temps_centi: ArrayLike | None,
                         constants: Sequence[UnitConstants]) -> I64:
-    """``static_outputs`` of a stack of U units in one compiled call: row i of the
-    (U, n) outputs is ``static_outputs(design, codes[i], temps_centi[i],
-    constants=constants[i])``. ``codes`` and ``temps_centi`` (0.01 C, or None) are
+    """The outputs of ``static_integer`` for a stack of U units in one compiled call (without
+    the per-node figures: a production line's verdicts): row i of the (U, n) outputs is
+    ``static_integer(design, codes[i], temps_centi[i], constants=constants[i]).output``.
+    ``codes`` and ``temps_centi`` (0.01 C, or None) are
     (U, n); each unit's constants are checked by the caller
     (``Design.check_in_force_many``)."""
     x, t = _inputs(design, codes, temps_centi, ndim=2)

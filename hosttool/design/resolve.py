@@ -265,8 +265,8 @@ class Design:
         return output_meaning(self.spec, self.decimation)
 
     def check_in_force(self, constants: UnitConstants) -> None:
-        """Refuse (DesignError) the constants ``with_constants`` refuses, building nothing:
-        the check a production line runs per unit before the static path."""
+        """Refuse (DesignError) the constants ``with_constants`` refuses, building nothing
+        (``check_in_force_many`` of one unit)."""
         reason = self.check_in_force_many([constants])[0]
         if reason is not None:
             raise DesignError(reason)

@@ -175,12 +175,6 @@ _READING = _HEAD + ('"raw_mean_counts": %r, "raw_std_counts": %r, "samples": %d,
 _POINT = _HEAD + '"direction": "%s", "output": %s, "error": %s, "limit": %s}'
 
 
-def prepare(ctx: CalibrationContext, unit: UnitReadings | RefusedRows,
-            override: int | None) -> Prepared:
-    """Calibrate one unit and build its image bytes (pure: no files, no record)."""
-    return prepare_units(ctx, [unit], override)[0]
-
-
 def prepare_units(ctx: CalibrationContext, units: Sequence[UnitReadings | RefusedRows],
                   override: int | None) -> list[Prepared]:
     """Calibrate units side by side (``calibrate_units``) and build each one's image bytes

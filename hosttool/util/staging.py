@@ -90,11 +90,6 @@ class Staging:
         fcntl.flock(self._owner, fcntl.LOCK_EX)
         self._inside = f"{self.path}{os.sep}"          # names joined as text: many per lot
 
-    def stage(self, files: dict[str, bytes]) -> None:
-        """Write each file (name -> bytes) into the staging folder; when this returns,
-        they are all on disk (their fsyncs issued together on this process's threads)."""
-        self.start(files).wait()
-
     def start(self, files: dict[str, bytes]) -> Flushing:
         """Write each file (name -> bytes) into the staging folder and issue their fsyncs on
         this process's threads; they are on disk once ``wait`` of the result returns."""
