@@ -1,6 +1,6 @@
 """A stack of units at once against unit by unit: the constants' check and the static path.
 
-``Design.check_in_force_many`` and ``model.static_outputs_many`` do for a stack of U units
+``Design.check_in_force_many`` and ``static_stack.static_outputs_many`` (numpy) do for a stack of U units
 what ``Design.check_in_force`` and ``model.static_integer`` do per unit (a batch's worker
 calibrates its units in stacks). This script times both ways on hive_scale with invented
 constants near the nominal ones and random codes and temperatures, U units of n readings
@@ -24,8 +24,9 @@ from pathlib import Path
 import numpy as np
 
 from hosttool.design.cached import cached_design
-from hosttool.design.model import static_integer, static_outputs_many
+from hosttool.design.model import static_integer
 from hosttool.design.resolve import Design, UnitConstants
+from hosttool.design.static_stack import static_outputs_many
 from hosttool.spec.schema import load_spec
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"

@@ -3,7 +3,7 @@
 ``Design.check_in_force_many`` (the constants of a stack of units checked at once) is held
 to ``Design.check_in_force`` and to the straightforward route ``Design.with_constants``
 unit by unit: the same units in force, each refusal the same text.
-``model.static_outputs_many`` (the static path of a stack in one compiled call) is held to
+``static_stack.static_outputs_many`` (the static path of a stack in numpy) is held to
 ``model.static_integer`` of each unit with its constants and, for a few units, to
 ``static_integer`` of the unit's own Design. Both over random constants (inside, at and
 beyond every limit, and beyond int64) for the example specs and for specs of every
@@ -16,13 +16,15 @@ from __future__ import annotations
 
 import re
 from collections.abc import Callable
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
 import pytest
 
-from hosttool.design.model import static_integer, static_outputs_many
+from hosttool.design.model import static_integer
 from hosttool.design.resolve import Design, UnitConstants, make_design, offset_limit
+from hosttool.design.static_stack import static_outputs_many
 from hosttool.errors import DesignError
 from hosttool.spec.schema import parse_spec
 
@@ -239,3 +241,25 @@ def test_static_outputs_many_refuses_what_static_integer_refuses() -> None:
         static_outputs_many(design, good, None, [c])
     empty = static_outputs_many(design, np.zeros((0, READINGS), dtype=np.int64), None, [])
     assert empty.shape == (0, READINGS)
+
+
+@pytest.mark.parametrize("name", ["hive_scale", "fatigue_coupon", "hive_polynomial"])
+def test_static_outputs_many_saturates_where_static_integer_saturates(name: str) -> None:
+    """Constants beyond what the check accepts (an offset past the chain word, a scale at
+    the int32 ends; within +-2^31, where a stack keeps them as they are) drive the chain
+    word into its clamp; the stack gives the same outputs as the compiled model (and so as
+    the firmware) there too."""
+    design = _design(name)
+    rng = np.random.default_rng(7)
+    n = design.nominal
+    units = [replace(n, offset=offset, scale_mul=mul)
+             for offset in (0, INT32_MAX, -INT32_MAX, 1 << 30)
+             for mul in (n.scale_mul, INT32_MAX, -INT32_MAX)]
+    codes = _codes(design, rng, len(units))
+    temps = rng.integers(-30_000, 30_000, size=codes.shape)
+    outputs = static_outputs_many(design, codes, temps, units)
+    for i, c in enumerate(units):
+        assert np.array_equal(outputs[i], static_integer(design, codes[i], temps[i],
+                                                         constants=c).output)
+    word = codes * (1 << design.guard_bits) - np.array([c.offset for c in units])[:, None]
+    assert np.count_nonzero((word > INT32_MAX) | (word < -INT32_MAX - 1)) > codes.size // 4

@@ -24,7 +24,7 @@ not imported here: verifying a cached design needs no filter design.
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -36,7 +36,8 @@ from hosttool.design.chain import compiled_chain
 from hosttool.design.compiled import njit
 from hosttool.design.filters import FirStage
 from hosttool.design.fixedpoint import INT32_MAX, INT32_MIN
-from hosttool.design.resolve import LIN_FRAC, ConstantsStack, Design, UnitConstants
+from hosttool.design.resolve import LIN_FRAC, Design, UnitConstants
+from hosttool.design.static_stack import checked_inputs, record_arrays
 from hosttool.errors import HostToolError
 
 I64 = NDArray[np.int64]
@@ -254,20 +255,6 @@ def _static_run(x: I64, t: I64, has_t: bool, ip: Ints,
 
 
 @njit(cache=True, nogil=True)
-def _static_many(x: I64, t: I64, has_t: bool, ip: I64,
-                 lin: I64) -> I64:  # pragma: no cover - compiled
-    """Offset and static path of a stack of units: row u of the codes ``x`` (and of ``t``)
-    with row u of the parameters ``ip`` (indices ``P_*``) and of ``lin``; outputs alone."""
-    out = np.empty(x.shape, dtype=np.int64)
-    for u in range(x.shape[0]):
-        p, c = ip[u], lin[u]
-        for n in range(x.shape[1]):
-            v = clamp32(offset_word(x[u, n], p))
-            out[u, n] = static_word(v, t[u, n] if has_t else p[P_TREF], p, c)[0]
-    return out
-
-
-@njit(cache=True, nogil=True)
 def _chain_run(x: I64, t: I64, has_t: bool, ip: Ints, lin: Ints, kinds: I64, blocks: I64,
                taps: I64, decimation: int
                ) -> tuple[I64, I64, I64, NDArray[np.int8]]:  # pragma: no cover
@@ -376,21 +363,6 @@ def _iir_reference(b: F64, a: F64, x: F64) -> F64:  # pragma: no cover - compile
 # ----------------------------------------------------------------------------- inputs
 
 
-def _inputs(design: Design, codes: ArrayLike, temps_centi: ArrayLike | None, *,
-            ndim: int = 1) -> tuple[I64, I64 | None]:
-    """``_record``'s arrays, the codes checked against the ADC's range."""
-    x, t = _record(design, codes, temps_centi, ndim=ndim)
-    if x.size and (x.min() < design.code_min or x.max() > design.code_max):
-        raise ValueError(_codes_text(design, ndim))
-    return x, t
-
-
-def _codes_text(design: Design, ndim: int) -> str:
-    """What codes must be: a record (1-D) or a stack of records (2-D, one per unit)."""
-    shape = "1-D array" if ndim == 1 else "2-D array (units, readings)"
-    return f"codes must be a {shape} of {design.spec.adc.bits}-bit values"
-
-
 def _output_temps(design: Design, t: I64 | None, n_out: int) -> I64 | None:
     if t is None:
         return None
@@ -399,7 +371,6 @@ def _output_temps(design: Design, t: I64 | None, n_out: int) -> I64 | None:
 
 
 _NO_TEMPS = np.zeros(0, dtype=np.int64)
-_NO_TEMPS_2D = np.zeros((0, 0), dtype=np.int64)
 
 
 def _static_names(design: Design) -> list[tuple[int, str]]:
@@ -464,21 +435,6 @@ def _specialised_chain(c: Cascade) -> Callable[..., Any] | None:
         return None
 
 
-def _record(design: Design, codes: ArrayLike, temps_centi: ArrayLike | None, *,
-            ndim: int = 1) -> tuple[I64, I64 | None]:
-    """Codes and temperatures as int64 arrays, shapes checked (``ndim``: 1 for a record,
-    2 for a stack of them; the code range is checked by whoever runs them)."""
-    x = np.ascontiguousarray(codes, dtype=np.int64)
-    if x.ndim != ndim:
-        raise ValueError(_codes_text(design, ndim))
-    if temps_centi is None:
-        return x, None
-    t = np.ascontiguousarray(temps_centi, dtype=np.int64)
-    if t.shape != x.shape:
-        raise ValueError("temperatures must pair one to one with codes")
-    return x, t
-
-
 def run_integer(design: Design, codes: ArrayLike,
                 temps_centi: ArrayLike | None = None) -> IntegerRun:
     """The bit-exact integer pipeline on a record of raw codes, from reset."""
@@ -487,7 +443,7 @@ def run_integer(design: Design, codes: ArrayLike,
     taps32 = c.taps.astype(np.int32)
     if specialised is None or not np.array_equal(taps32, c.taps):
         return _run_generic(design, c, codes, temps_centi)
-    x, t = _record(design, codes, temps_centi)
+    x, t = record_arrays(design, codes, temps_centi)
     p = static_params(design)
     shifts = tuple(int(b[2]) if k == BLOCK_FIR else int(b[5])
                    for k, b in zip(c.kinds, c.blocks, strict=True))
@@ -499,14 +455,14 @@ def run_integer(design: Design, codes: ArrayLike,
         x, _NO_TEMPS if t is None else t, t is not None, p.ints, p.lin, taps32,
         shifts or (0,), coeffs)
     if x.size and (low < design.code_min or high > design.code_max):
-        _inputs(design, x, t)                 # raises its ValueError
+        checked_inputs(design, x, t)          # raises its ValueError
     return _named(design, c, IntegerRun(output=out, rail=rail, clamped=clamped), peaks, sats)
 
 
 def _run_generic(design: Design, c: Cascade, codes: ArrayLike,
                  temps_centi: ArrayLike | None) -> IntegerRun:
     """run_integer through the generic loop (``_chain_run``)."""
-    x, t = _inputs(design, codes, temps_centi)
+    x, t = checked_inputs(design, codes, temps_centi)
     p = static_params(design)
     out, peaks, sats, flags = _chain_run(x, _NO_TEMPS if t is None else t, t is not None,
                                          p.ints, p.lin, c.kinds, c.blocks, c.taps,
@@ -533,7 +489,7 @@ def static_integer(design: Design, codes: ArrayLike, temps_centi: ArrayLike | No
     with the design's constants in force or with ``constants`` (one unit's, checked by the
     caller with ``Design.check_in_force``: the same outputs as ``static_integer`` of
     ``design.with_constants(constants)``, without building that design)."""
-    x, t = _inputs(design, codes, temps_centi)
+    x, t = checked_inputs(design, codes, temps_centi)
     p = static_params(design, constants=constants)
     out, peaks, sats, flags = _static_run(x, _NO_TEMPS if t is None else t, t is not None,
                                           p.ints, p.lin)
@@ -543,34 +499,6 @@ def static_integer(design: Design, codes: ArrayLike, temps_centi: ArrayLike | No
     for i, name in [(0, "offset"), *_static_names(design)]:
         run.saturations[name], run.peaks[name] = sat_list[i], peak_list[i]
     return run
-
-
-def static_outputs_many(design: Design, codes: ArrayLike, temps_centi: ArrayLike | None,
-                        constants: Sequence[UnitConstants]) -> I64:
-    """The outputs of ``static_integer`` for a stack of U units in one compiled call (without
-    the per-node figures: a production line's verdicts): row i of the (U, n) outputs is
-    ``static_integer(design, codes[i], temps_centi[i], constants=constants[i]).output``.
-    ``codes`` and ``temps_centi`` (0.01 C, or None) are
-    (U, n); each unit's constants are checked by the caller
-    (``Design.check_in_force_many``)."""
-    x, t = _inputs(design, codes, temps_centi, ndim=2)
-    if len(constants) != x.shape[0]:
-        raise ValueError(f"{len(constants)} units' constants for {x.shape[0]} rows of codes")
-    ints, lin = _params_many(design, ConstantsStack.of(constants, design.lin_count))
-    out: I64 = _static_many(x, _NO_TEMPS_2D if t is None else t, t is not None, ints, lin)
-    return out
-
-
-def _params_many(design: Design, stack: ConstantsStack) -> tuple[I64, I64]:
-    """``static_params(design, constants=c).ints`` and ``.lin`` of every unit of
-    ``stack``, as (U, 16) and (U, max(k, 1)) arrays."""
-    ints = np.tile(np.asarray(static_params(design).ints, dtype=np.int64),
-                   (stack.offset.size, 1))
-    for i, name in UNIT_INTS + (UNIT_TC_INTS if design.temperature is not None else ()):
-        ints[:, i] = getattr(stack, name)
-    lin = stack.lin if design.linearisation is not None else \
-        np.zeros((stack.offset.size, 1), dtype=np.int64)
-    return ints, np.ascontiguousarray(lin)
 
 
 # ----------------------------------------------------------------------------- float
@@ -595,7 +523,7 @@ def run_reference(design: Design, codes: ArrayLike, temps_centi: ArrayLike | Non
     proven bound ``design.error_bound_lsb`` applies). Ideal: unquantised filter designs,
     scale and linearisation (``design.ideal_error_bound_lsb`` applies).
     """
-    x, t = _inputs(design, codes, temps_centi)
+    x, t = checked_inputs(design, codes, temps_centi)
     v = _chain_input(design, x)
     for stage in design.stages:
         if isinstance(stage, FirStage):
@@ -615,7 +543,7 @@ def run_reference(design: Design, codes: ArrayLike, temps_centi: ArrayLike | Non
 def static_reference(design: Design, codes: ArrayLike, temps_centi: ArrayLike | None = None,
                      *, ideal: bool = False) -> F64:
     """The float64 static path (settled DC input)."""
-    x, t = _inputs(design, codes, temps_centi)
+    x, t = checked_inputs(design, codes, temps_centi)
     return _static_float(design, _chain_input(design, x), t, ideal)
 
 

@@ -526,17 +526,17 @@ def _preparer(work: _Work, jobs: int, units: list[UnitRows]
 
     The workers are forked before the record is opened (an SQLite connection must not
     cross a fork) and inherit the work's context instead of receiving it pickled; each
-    chunk of units travels as its rows' text. Before the fork, this process loads what a
-    first unit loads (``_load_once``) and freezes its objects for the garbage collector
-    (``gc.freeze``): the workers' collections then skip the objects they inherit, instead
-    of walking them (and copying every page they touch) again and again."""
+    chunk of units travels as its rows' text. Before the fork, this process freezes its
+    objects for the garbage collector (``gc.freeze``): the workers' collections then skip
+    the objects they inherit, instead of walking them (and copying every page they touch)
+    again and again. Nothing a unit runs is compiled (the static path of a stack is numpy:
+    design/static_stack.py), so no process of a batch imports numba."""
     def chunks(units: list[UnitRows]) -> Iterator[list[UnitRows]]:
         return (units[i:i + CHUNK] for i in range(0, len(units), CHUNK))
 
     if jobs <= 1 or len(units) < 2 * CHUNK:
         yield lambda units: (p for c in chunks(units) for p in work.chunk(c))
         return
-    _load_once(work, units)
     gc.freeze()
     try:
         with multiprocessing.get_context("fork").Pool(
@@ -544,13 +544,6 @@ def _preparer(work: _Work, jobs: int, units: list[UnitRows]
             yield lambda units: (p for done in pool.imap(_work, chunks(units)) for p in done)
     finally:
         gc.unfreeze()
-
-
-def _load_once(work: _Work, units: list[UnitRows]) -> None:
-    """Calibrate the first unit and drop the result: what a process loads on its first
-    unit (numba's compiled kernels from their on-disk cache, the modules they import,
-    about 0.3 s) is then loaded once, here, and inherited by every worker at the fork."""
-    prepare_units(work.ctx, work.layout.check(units[:1]), work.override)
 
 
 def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: str | Path | None,

@@ -13,7 +13,7 @@ squares (numpy.linalg.lstsq) over every reading, in [1, u] or [1, dT, u, u dT]. 
 w = s / 2^K to what the firmware must output. Every constant is rounded into the design's
 format and checked (``Design.check_in_force_many``: what ``Design.with_constants``
 refuses); the verdict comes from the unit's readings run through the bit-exact static path
-(``model.static_outputs_many``) with those constants: what the firmware will output.
+(``static_stack.static_outputs_many``) with those constants: what the firmware will output.
 
 A production line calibrates thousands of units of a dozen readings each. They are
 calibrated side by side (``calibrate_units``): units with the same number of readings form
@@ -44,8 +44,8 @@ from numpy.linalg import _umath_linalg
 from numpy.typing import NDArray
 
 from hosttool import __version__
-from hosttool.design.model import static_outputs_many
 from hosttool.design.resolve import LIN_FRAC, Design, UnitConstants
+from hosttool.design.static_stack import static_outputs_many
 from hosttool.errors import InputError
 from hosttool.formats.calblock import BlockFormat
 from hosttool.formats.caljson import (
