@@ -11,6 +11,7 @@ import fcntl
 import os
 import subprocess
 import sys
+import threading
 import time
 from pathlib import Path
 
@@ -111,6 +112,33 @@ def test_a_failed_fsync_is_one_line_and_every_file_is_closed(
     with pytest.raises(staging.OutputError, match=r"cannot write an image: Input/output error$"):
         flushing.wait()
     assert len(calls) == 5 and len(os.listdir("/proc/self/fd")) == open_before
+    stage.close()
+
+
+def test_a_part_is_flushed_by_one_thread_write_back_started_before_the_first_fsync(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    # Source: posix_fadvise(2) POSIX_FADV_DONTNEED starts write-back of a file's dirty pages
+    # (Linux) and only advises; fsync(2) still makes each file durable.
+    events: list[tuple[str, int, int]] = []
+    real_fsync = os.fsync
+
+    def hint(fd: int, offset: int, length: int, advice: int) -> None:
+        assert advice == os.POSIX_FADV_DONTNEED
+        events.append(("hint", fd, threading.get_ident()))
+
+    def fsync(fd: int) -> None:
+        events.append(("fsync", fd, threading.get_ident()))
+        real_fsync(fd)
+
+    monkeypatch.setattr(staging, "_START_WRITEBACK", hint)
+    monkeypatch.setattr(staging.os, "fsync", fsync)
+    stage = staging.Staging(tmp_path)
+    files = {f"U{i}.hex": b":00000001FF\n" for i in range(8)}
+    stage.start(files).wait()
+    stage.start(files).wait()
+    assert [e[0] for e in events] == (["hint"] * 8 + ["fsync"] * 8) * 2
+    assert len({e[2] for e in events}) == 1 and events[0][2] != threading.get_ident()
+    assert sorted(e[1] for e in events[:8]) == sorted(e[1] for e in events[8:16])
     stage.close()
 
 

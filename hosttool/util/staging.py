@@ -2,10 +2,15 @@
 
 A production batch makes each unit's image in a worker process and records it in the main
 one. The worker writes the images of each part of a chunk of units into the batch's own
-*staging folder* inside the output folder and fsyncs them there, all of a part in flight at
-once on a pool of threads while the worker computes the chunk's next part (``start``), and
-waits for them before handing the chunk back (``Flushing.wait``): the data is on disk
-before the recording process sees it.
+*staging folder* inside the output folder and has them flushed there by a thread of its
+own while it computes the chunk's next part (``start``), and waits for them before handing
+the chunk back (``Flushing.wait``): the data is on disk before the recording process sees
+it. The thread first has the kernel start writing every file of the part
+(``posix_fadvise`` DONTNEED: write-back begun, not waited for), then fsyncs them one after
+the other: on a journalling file system (ext4 measured) the first waits for the data and
+the journal commit that carry them all, the others find theirs done. That costs about half
+the CPU time of one thread per fsync (64 threads woken and put to sleep per part), for the
+same wait.
 The recording process then renames the images of a group into the output folder and fsyncs
 the folder once (the names are on disk), before the group's rows commit. Only these files
 are flushed: ``os.sync()`` would wait for every pending write of the whole machine.
@@ -29,23 +34,40 @@ from pathlib import Path
 
 from hosttool.errors import OutputError
 
-#: Most fsyncs in flight at once in one process (issued together, the file system can
-#: commit them in one journal write): a whole part of a chunk of the batch's units.
-FSYNC_THREADS = 64
 STAGING_PREFIX = ".hosttool-staging-"
 OWNER = ".owner"
 #: A staging folder without its lock file is another batch's in the making unless older.
 ORPHAN_AGE_S = 60.0
+#: Asks the kernel to start writing a file's data back now (POSIX; absent on some systems,
+#: where each fsync starts its own).
+_START_WRITEBACK = getattr(os, "posix_fadvise", None)
 
-_POOL: dict[int, ThreadPoolExecutor] = {}       # pid -> this process's fsync threads
+_FLUSHER: dict[int, ThreadPoolExecutor] = {}     # pid -> this process's flushing thread
 
 
-def fsync_pool() -> ThreadPoolExecutor:
-    """This process's fsync threads (started on first use; a forked worker starts its own)."""
-    pool = _POOL.get(os.getpid())
+def flusher() -> ThreadPoolExecutor:
+    """This process's flushing thread (started on first use; a forked worker starts its
+    own)."""
+    pool = _FLUSHER.get(os.getpid())
     if pool is None:
-        pool = _POOL[os.getpid()] = ThreadPoolExecutor(FSYNC_THREADS)
+        pool = _FLUSHER[os.getpid()] = ThreadPoolExecutor(1)
     return pool
+
+
+def _flush(fds: list[int]) -> OSError | None:
+    """Make the files durable: write-back of all started first, then each fsynced in turn
+    (every fsync tried); the first failure, None if none."""
+    if _START_WRITEBACK is not None:
+        for fd in fds:
+            with contextlib.suppress(OSError):          # a hint: fsync below decides
+                _START_WRITEBACK(fd, 0, 0, os.POSIX_FADV_DONTNEED)
+    failed: OSError | None = None
+    for fd in fds:
+        try:
+            os.fsync(fd)
+        except OSError as exc:
+            failed = failed or exc
+    return failed
 
 
 def fsync_folder(folder: Path) -> None:
@@ -61,19 +83,18 @@ def fsync_folder(folder: Path) -> None:
 
 
 class Flushing:
-    """Files written and their fsyncs in flight (``Staging.start``)."""
+    """Files written and being flushed (``Staging.start``)."""
 
-    def __init__(self, folder: Path, fds: list[int], syncs: list[Future[None]]):
-        self._folder, self._fds, self._syncs = folder, fds, syncs
+    def __init__(self, folder: Path, fds: list[int], flushed: Future[OSError | None]):
+        self._folder, self._fds, self._flushed = folder, fds, flushed
 
     def wait(self) -> None:
         """Return once every file is on disk (its fsync done); close them."""
-        failed = [exc for exc in (sync.exception() for sync in self._syncs) if exc is not None]
+        failed = self._flushed.result()
         for fd in self._fds:
             os.close(fd)
-        if failed:
-            strerror = getattr(failed[0], "strerror", str(failed[0]))
-            raise OutputError(f"{self._folder}: cannot write an image: {strerror}")
+        if failed is not None:
+            raise OutputError(f"{self._folder}: cannot write an image: {failed.strerror}")
 
 
 class Staging:
@@ -91,8 +112,8 @@ class Staging:
         self._inside = f"{self.path}{os.sep}"          # names joined as text: many per lot
 
     def start(self, files: dict[str, bytes]) -> Flushing:
-        """Write each file (name -> bytes) into the staging folder and issue their fsyncs on
-        this process's threads; they are on disk once ``wait`` of the result returns."""
+        """Write each file (name -> bytes) into the staging folder and hand them to this
+        process's flushing thread; they are on disk once ``wait`` of the result returns."""
         fds: list[int] = []
         try:
             for name, data in files.items():
@@ -106,7 +127,7 @@ class Staging:
                 os.close(fd)
             raise OutputError(f"{self.path}: cannot write {exc.filename or 'an image'}: "
                               f"{exc.strerror}") from None
-        return Flushing(self.path, fds, [fsync_pool().submit(os.fsync, fd) for fd in fds])
+        return Flushing(self.path, fds, flusher().submit(_flush, fds))
 
     def publish(self, name: str, final: str) -> None:
         """Rename the staged file ``name`` to ``final`` (in the output folder; durable once
