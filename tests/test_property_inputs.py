@@ -260,3 +260,21 @@ def test_unit_with_extreme_numbers_is_judged_or_refused(scale: float, column: in
         lines[2 + i] = ",".join(cells)
     with _folder({"spec.toml": HIVE_TEXT, "lot.csv": "\n".join(lines) + "\n"}):
         _run("calibrate", "spec.toml", "lot.csv", "--serial", "PT-1", "-o", "cal.json")
+
+
+@settings(max_examples=300, deadline=None, derandomize=True)
+@given(st.lists(st.text(alphabet="0123456789.eE+-", max_size=8)
+                | st.sampled_from(EXTREMES + ["", " 1", "1 ", "-", "e", "1e", ".e1"]),
+                min_size=1, max_size=12))
+def test_number_column_read_as_one_is_read_cell_by_cell(cells: list[str]) -> None:
+    # The reference: each cell by itself, a number only if it matches the readings file's
+    # decimal notation, then float() (Python library reference: float).
+    from hosttool.formats.readings import _NUMBER_RE, _numbers
+    expected = [float(c) if _NUMBER_RE.fullmatch(c) else None for c in cells]
+    check = _numbers("raw_mean_counts", cells, -1e308, 1e308, "a range")
+    for cell, value, bad, want in zip(cells, check.values.tolist(), check.bad.tolist(),
+                                      expected, strict=True):
+        if want is None:
+            assert bad and "is not a number" in check.message(cells.index(cell)), cell
+        else:
+            assert value == want or (want != want and value != value), cell

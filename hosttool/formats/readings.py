@@ -108,9 +108,12 @@ def _columns(header: list[str], spec: Spec, source: str, line: int) -> dict[str,
 
 
 _NUMBER_RE = re.compile(r"[+-]?(?:[0-9]+(?:\.[0-9]*)?|\.[0-9]+)(?:[eE][+-]?[0-9]+)?")
-#: A whole column of such numbers, one per line (no cell holds a line break): one match
-#: instead of one per cell.
-_COLUMN_RE = re.compile(rf"{_NUMBER_RE.pattern}(?:\n{_NUMBER_RE.pattern})*")
+#: The characters of such numbers. Over them, what Python's float() reads is exactly what
+#: ``_NUMBER_RE`` matches (its other forms, inf, nan and digits with '_', need other
+#: characters; Python language reference, "Floating-point literals", and float()): a
+#: column whose cells are all of these characters and all read by float() is valid,
+#: checked with one match of the whole column instead of one per cell.
+_NUMBER_CHARS_RE = re.compile(r"[0-9.eE+-]*")
 #: Stripped from both ends of a cell (and of a header name): only spaces and tabs, so any
 #: other control character stays in the cell and is refused by its column's check.
 CELL_PADDING = " \t"
@@ -159,9 +162,12 @@ class _Check:
 def _numbers(name: str, cells: list[str], low: float, high: float, span: str,
              unit: str = "") -> _Check:
     """A column of decimal numbers (ASCII, plain or exponent notation) within low .. high."""
-    if _COLUMN_RE.fullmatch("\n".join(cells)):
-        parsed = list(map(float, cells))
-    else:
+    try:
+        parsed = list(map(float, cells)) if _NUMBER_CHARS_RE.fullmatch("".join(cells)) \
+            else None
+    except ValueError:
+        parsed = None
+    if parsed is None:
         parsed = [float(c) if _NUMBER_RE.fullmatch(c) else math.nan for c in cells]
     values = np.array(parsed, dtype=np.float64)
     with np.errstate(invalid="ignore"):
@@ -285,11 +291,12 @@ class ReadingsLayout:
         line_numbers = np.array(lines, dtype=np.int64)
         has_time = "time_utc" in self.index
         standards = columns.get("standards")
+        any_bad = bool(bad_rows.any())
         out: list[UnitReadings | RefusedRows] = []
         first = 0
         for unit in units:
             stop = first + len(unit.lines)
-            bad = np.flatnonzero(bad_rows[first:stop])
+            bad = np.flatnonzero(bad_rows[first:stop]) if any_bad else _NONE_BAD
             if bad.size:
                 i = first + int(bad[0])
                 out.append(RefusedRows(unit.serial, lines[i],
@@ -308,6 +315,9 @@ class ReadingsLayout:
                     if standards is not None else ()))
             first = stop
         return out
+
+
+_NONE_BAD = np.zeros(0, dtype=np.intp)
 
 
 def _problem(checks: list[_Check], lines: list[int], i: int, source: str) -> str:

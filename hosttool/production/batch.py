@@ -283,16 +283,21 @@ def _list_template(item: str, n: int) -> str:
 
 def _traced(p: Prepared, unit: UnitReadings | RefusedRows,
             register: dict[str, Standard] | None, lot_ids: tuple[str, ...]) -> Prepared:
-    """The unit with the reference standards its readings used, or refused (unknown
-    standard, or one past its due date when a reading was taken)."""
+    """The unit with the reference standards its readings used (none named: none used) and,
+    if it passed, the name its image is staged under; or refused (unknown standard, or one
+    past its due date when a reading was taken)."""
     if p.refused or isinstance(unit, RefusedRows):
         return p
-    try:
-        used = unit_standards(unit, register, lot_ids,
-                              parse_time_utc(p.cal_time_utc, "cal_time_utc"))
-    except InputError as exc:
-        return refused(p.serial, str(exc))
-    return replace(p, standards=json.dumps(used))
+    standards = p.standards
+    if lot_ids or unit.standards:
+        try:
+            used = unit_standards(unit, register, lot_ids,
+                                  parse_time_utc(p.cal_time_utc, "cal_time_utc"))
+        except InputError as exc:
+            return refused(p.serial, str(exc))
+        standards = json.dumps(used)
+    return replace(p, standards=standards,
+                   staged=None if p.image is None else f"{p.serial}.hex")
 
 
 # ----------------------------------------------------------------------------- recording
@@ -317,6 +322,14 @@ class Station:
     readings_sha256: str
     readings_name: str
     staging: Staging
+
+    @functools.cached_property
+    def _inside(self) -> str:
+        return f"{self.folder}{os.sep}"
+
+    def file(self, name: str) -> str:
+        """The path of a file of the output folder (joined as text: many per lot)."""
+        return self._inside + name
 
     @contextmanager
     def folder_lock(self) -> Iterator[None]:
@@ -371,7 +384,7 @@ def _decide(st: Station, p: Prepared, row: Row | None, last_revision: int) -> _P
             done = Outcome(p.serial, p.verdict, p.reasons, row.hex_file, False, row.revision)
             if row.hex_file is None or p.image is None:
                 return _Plan(p, done, row.id, row.revision, None, False)
-            existing = _existing(os.path.join(st.folder, row.hex_file))
+            existing = _existing(st.file(row.hex_file))
             if existing is not None and existing != p.image:
                 return _Plan(p, Outcome(
                     p.serial, "refused", (f"{row.hex_file}: differs from the image its record "
@@ -390,14 +403,15 @@ def _decide(st: Station, p: Prepared, row: Row | None, last_revision: int) -> _P
         return _Plan(p, None, None if row is None else row.id, revision, None, False)
     hex_file = f"{p.serial}.r{revision}.hex"
     # an existing file of that name is a killed run's, never recorded: adopt or replace it
-    write = _existing(os.path.join(st.folder, hex_file)) != p.image
+    write = _existing(st.file(hex_file)) != p.image
     return _Plan(p, None, None if row is None else row.id, revision, hex_file, write)
 
 
-def _row(st: Station, p: Prepared, revision: int, hex_file: str | None) -> dict[str, object]:
+def _row(st: Station, p: Prepared, revision: int, hex_file: str | None,
+         recorded_utc: str) -> dict[str, object]:
     return {
         "serial": p.serial, "revision": revision, "current": 1, "station": st.name,
-        "recorded_utc": datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%S.%fZ"),
+        "recorded_utc": recorded_utc,
         "cal_time_utc": p.cal_time_utc, "spec_name": st.spec_name,
         "spec_sha256": st.spec_sha256, "readings_file": st.readings_name,
         "readings_sha256": st.readings_sha256, "constants": p.constants,
@@ -433,15 +447,15 @@ def commit_group(st: Station, group: list[Prepared]) -> list[Outcome]:
             if plan.prepared.staged is None:
                 continue
             if plan.write and plan.hex_file:
-                st.staging.publish(plan.prepared.staged,
-                                   os.path.join(st.folder, plan.hex_file))
+                st.staging.publish(plan.prepared.staged, st.file(plan.hex_file))
                 published = True
             else:
                 st.staging.discard(plan.prepared.staged)
         if published:
             fsync_folder(st.folder)
-        st.record.add([(_row(st, plan.prepared, plan.revision, plan.hex_file), plan.current_id)
-                       for plan in plans if plan.outcome is None])
+        recorded = datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%S.%fZ")   # the group's time
+        st.record.add([(_row(st, plan.prepared, plan.revision, plan.hex_file, recorded),
+                        plan.current_id) for plan in plans if plan.outcome is None])
     return [_outcome(plan) for plan in plans]
 
 
@@ -495,10 +509,8 @@ class _Work:
             for unit, prepared in zip(part, prepare_units(self.ctx, part, self.override),
                                       strict=True):
                 p = _traced(prepared, unit, self.register, self.lot_ids)
-                if p.image is not None:
-                    name = f"{p.serial}.hex"
-                    images[name] = p.image
-                    p = replace(p, staged=name)
+                if p.staged is not None and p.image is not None:
+                    images[p.staged] = p.image
                 done.append(p)
             flushing.append(self.staging.start(images))
         for part_flushing in flushing:

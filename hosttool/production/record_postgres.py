@@ -22,7 +22,6 @@ import psycopg
 
 from hosttool.errors import OutputError
 from hosttool.production.record import (
-    COLUMNS,
     INSERT,
     MIGRATIONS,
     REVISIONS_QUERY,
@@ -35,6 +34,7 @@ from hosttool.production.record import (
     check_columns,
     iter_statements,
     lookups,
+    row_values,
     shown,
     stored_version,
 )
@@ -127,8 +127,7 @@ class PostgresRecord:
         with self.db.cursor() as cursor:
             cursor.executemany("UPDATE calibrations SET current = 0 WHERE id = %s",
                                [(old,) for _, old in rows if old is not None])
-            cursor.executemany(_sql(INSERT), [tuple(values[c] for c in COLUMNS)
-                                              for values, _ in rows])
+            cursor.executemany(_sql(INSERT), [row_values(values) for values, _ in rows])
 
     def select(self, which: Filter) -> list[dict[str, Any]]:
         """Rows as dicts, by serial and revision."""

@@ -21,7 +21,6 @@ from typing import Any
 
 from hosttool.errors import OutputError
 from hosttool.production.record import (
-    COLUMNS,
     INSERT,
     MIGRATIONS,
     REVISIONS_QUERY,
@@ -34,6 +33,7 @@ from hosttool.production.record import (
     check_columns,
     iter_statements,
     lookups,
+    row_values,
     stored_version,
 )
 
@@ -144,8 +144,7 @@ class SqliteRecord:
         try:
             self.db.executemany("UPDATE calibrations SET current = 0 WHERE id = ?",
                                 [(old,) for _, old in rows if old is not None])
-            self.db.executemany(INSERT, [tuple(values[c] for c in COLUMNS)
-                                         for values, _ in rows])
+            self.db.executemany(INSERT, [row_values(values) for values, _ in rows])
         except sqlite3.Error as exc:
             raise OutputError(f"{self.path}: cannot record the group of "
                               f"{rows[0][0]['serial']}: {exc}") from None
