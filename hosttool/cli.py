@@ -476,8 +476,15 @@ def explore(spec: Path, vary: tuple[str, ...], sort: str, jobs: int, m4: bool, a
 
 def run() -> None:
     """The console entry point (and ``python -m hosttool``): ``main``; after a command that
-    set ``_EXIT["quick"]`` (verify and batch, which load numba) the process ends at once
-    (util/quick_exit.py). Tests call ``main`` in-process and never end here."""
+    set ``_EXIT["quick"]`` (verify, which loads numba, and batch, whose heap is large) the
+    process ends at once (util/quick_exit.py). Tests call ``main`` in-process and never end
+    here.
+
+    numpy's BLAS gets one thread (``OPENBLAS_NUM_THREADS``, unless the user set it): the
+    tool's matrices are small (a unit's fit, a filter design), and OpenBLAS's extra threads
+    spin after start-up (about 0.1 s of CPU per process on a 2-core machine, taken from
+    batch's workers and verify's sweep threads)."""
+    os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
     try:
         main(prog_name="hosttool")
     except SystemExit as exc:

@@ -457,3 +457,18 @@ def test_bad_spec_through_python_dash_m(tmp_path):
     assert done.stderr == (f"hosttool: error: {path}:{line_of(GAUGE, 'gauge_factor')}: "
                            "sensor.gauge_factor: must be at least 0.5, got 0 (metal foil and wire "
                            "gauges lie near 2)\n")
+
+
+@pytest.mark.parametrize(("given", "expected"), [(None, "1"), ("3", "3")])
+def test_console_entry_gives_blas_one_thread_unless_the_user_set_it(given, expected):
+    # Source: OpenBLAS reads OPENBLAS_NUM_THREADS when it is loaded (with numpy), so the
+    # entry point must set it before any command imports numpy.
+    code = ("import os, sys\nfrom hosttool.cli import run\nsys.argv = ['hosttool', 'check', "
+            "'--help']\ntry:\n    run()\nexcept SystemExit:\n    pass\n"
+            "print(os.environ['OPENBLAS_NUM_THREADS'], 'numpy' in sys.modules)")
+    env = {k: v for k, v in os.environ.items() if k != "OPENBLAS_NUM_THREADS"}
+    if given is not None:
+        env["OPENBLAS_NUM_THREADS"] = given
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          env=env, check=True)
+    assert done.stdout.split()[-2:] == [expected, "False"]
