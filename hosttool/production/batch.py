@@ -42,6 +42,7 @@ import os
 import re
 import socket
 from collections.abc import Callable, Iterable, Iterator, Sequence
+from concurrent.futures import ProcessPoolExecutor
 from contextlib import contextmanager
 from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
@@ -77,6 +78,7 @@ from hosttool.production.record_open import open_record
 from hosttool.production.traceability import check_lot_standards, unit_standards
 from hosttool.spec.schema import load_spec
 from hosttool.util.atomic import make_folder
+from hosttool.util.parent_death import end_with_parent
 from hosttool.util.staging import Staging, clear_stale, fsync_folder
 from hosttool.util.text import control_character, shown
 from hosttool.util.utctime import format_time_utc, parse_time_utc
@@ -521,7 +523,8 @@ class _Work:
 _WORKER: list[_Work] = []  # filled in worker processes only
 
 
-def _start_worker(work: _Work) -> None:
+def _start_worker(work: _Work, parent: int) -> None:
+    end_with_parent(parent)
     _WORKER.append(work)
 
 
@@ -530,30 +533,42 @@ def _work(units: list[UnitRows]) -> list[Prepared]:
 
 
 @contextmanager
-def _preparer(work: _Work, jobs: int, units: list[UnitRows]
-              ) -> Iterator[Callable[[list[UnitRows]], Iterator[Prepared]]]:
-    """A function giving prepared units in file order, the rows checked, calibrated and
-    imaged ``CHUNK`` units at a time, in ``jobs`` worker processes if > 1 (and ``units``,
-    the lot, has at least two chunks).
+def _preparer(work: _Work, jobs: int, units: list[UnitRows]) -> Iterator[Iterator[Prepared]]:
+    """The lot's units prepared, in file order: the rows checked, calibrated and imaged
+    ``CHUNK`` units at a time, in ``jobs`` worker processes if > 1 (and the lot has at least
+    two chunks).
 
-    The workers are forked before the record is opened (an SQLite connection must not
-    cross a fork) and inherit the work's context instead of receiving it pickled; each
-    chunk of units travels as its rows' text. Before the fork, this process freezes its
+    The workers are forked here, before the record is opened (an SQLite connection must not
+    cross a fork), and given chunks once the first unit is asked for; they inherit the
+    work's context instead of receiving it pickled; each chunk of units travels as its
+    rows' text. Before the fork, this process freezes its
     objects for the garbage collector (``gc.freeze``): the workers' collections then skip
     the objects they inherit, instead of walking them (and copying every page they touch)
     again and again. Nothing a unit runs is compiled (the static path of a stack is numpy:
-    design/static_stack.py), so no process of a batch imports numba."""
-    def chunks(units: list[UnitRows]) -> Iterator[list[UnitRows]]:
-        return (units[i:i + CHUNK] for i in range(0, len(units), CHUNK))
+    design/static_stack.py), so no process of a batch imports numba.
 
+    concurrent.futures' process pool, not multiprocessing.Pool: the latter's worker-minding
+    thread also waits on the results pipe and so wakes at every piece of a chunk's results
+    (about 800 kB through a 64 kB pipe) until the result thread has read it all, thousands of
+    times a second; here one thread waits for a result and reads it whole. Leaving early
+    (the recording failed) cancels the chunks not yet started."""
+    chunks = (units[i:i + CHUNK] for i in range(0, len(units), CHUNK))
     if jobs <= 1 or len(units) < 2 * CHUNK:
-        yield lambda units: (p for c in chunks(units) for p in work.chunk(c))
+        yield (p for c in chunks for p in work.chunk(c))
         return
     gc.freeze()
     try:
-        with multiprocessing.get_context("fork").Pool(
-                jobs, initializer=_start_worker, initargs=(work,)) as pool:
-            yield lambda units: (p for done in pool.imap(_work, chunks(units)) for p in done)
+        with ProcessPoolExecutor(jobs, mp_context=multiprocessing.get_context("fork"),
+                                 initializer=_start_worker, initargs=(work, os.getpid())) as pool:
+            def prepared() -> Iterator[Prepared]:
+                for part in pool.map(_work, chunks):
+                    yield from part
+
+            try:
+                pool.submit(os.getpid).result()            # forks the workers now
+                yield prepared()                           # chunks sent from the first unit
+            finally:
+                pool.shutdown(wait=True, cancel_futures=True)
     finally:
         gc.unfreeze()
 
@@ -589,7 +604,7 @@ def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: str | Path
                          readings_name=readings_path.name, staging=staging)
             try:
                 clear_temporaries(st)
-                stream: Iterable[Prepared] = prepared(readings.units)
+                stream: Iterable[Prepared] = prepared
                 if progress is not None:
                     stream = progress(stream, len(readings.units))
                 outcomes = tuple(o for group in _groups(stream, GROUP)
