@@ -49,7 +49,7 @@ def test_version_1_record_is_migrated_on_first_use(tmp_path: Path) -> None:
     db.close()
 
 
-def test_a_new_record_has_64_kib_pages_an_old_one_keeps_its_own(tmp_path: Path) -> None:
+def test_a_new_record_has_32_kib_pages_an_old_one_keeps_its_own(tmp_path: Path) -> None:
     """Source: SQLite's page_size pragma (sqlite.org/pragma.html): it sets the page size
     of a database not yet created; an existing one keeps its own until a VACUUM."""
     new = tmp_path / "new.sqlite"
@@ -65,7 +65,7 @@ def test_a_new_record_has_64_kib_pages_an_old_one_keeps_its_own(tmp_path: Path) 
         db = sqlite3.connect(path)
         sizes.append(db.execute("PRAGMA page_size").fetchone()[0])
         db.close()
-    assert sizes == [65536, before] and before < 65536
+    assert sizes == [32768, before] and before < 32768
 
 
 def test_reworked_failed_unit_is_recorded_again_without_recalibrate(tmp_path: Path) -> None:
