@@ -10,6 +10,7 @@ a process about 0.5 s): the static path of a stack is numpy (design/static_stack
 
 from __future__ import annotations
 
+import gc
 import subprocess
 import sys
 from pathlib import Path
@@ -76,3 +77,24 @@ def test_workers_inherit_a_frozen_heap_and_no_process_imports_numba(tmp_path: Pa
     assert len(found["worker"]) == 3 and found["parent"][0] not in found["worker"]
     assert found["numba"] == [0, 0, 0, 0]
     assert found["frozen"][0] > 0 and found["after"] == [0]
+
+
+def test_the_collector_runs_less_often_during_a_batch_only(tmp_path: Path) -> None:
+    # Source: gc.set_threshold / gc.get_threshold (Python library reference, gc module).
+    from hosttool.production import batch
+    design = make_design(parse_spec(SPEC.read_text(), str(SPEC)))
+    readings = tmp_path / "lot.csv"
+    readings.write_text(lot_csv(design, [random_truth(f"GC{i:04d}", np.random.default_rng(i))
+                                         for i in range(3)], seed=3, start_utc=1_741_075_200))
+    before = gc.get_threshold()
+    during = []
+
+    def progress(stream, count):
+        during.append(gc.get_threshold())
+        return stream
+
+    summary = batch.run_batch(SPEC, readings, out=tmp_path / "out", db=None, station="t",
+                              recalibrate=False, cal_time=None, progress=progress)
+    assert len(summary.outcomes) == 3
+    assert during == [(batch.GC_YOUNG, *before[1:])] and before[0] < batch.GC_YOUNG
+    assert gc.get_threshold() == before
