@@ -192,7 +192,9 @@ def _checks(cells: dict[str, list[str]], rules: _Rules, has_time: bool) -> list[
     samples_ok = [t.isascii() and t.isdigit() and len(t) <= 10 for t in samples_text]
     samples = np.array([int(t) if ok else 0 for t, ok in zip(samples_text, samples_ok,
                                                              strict=True)], dtype=np.int64)
-    directions = [d.lower() if d.isascii() else d for d in cells["direction"]]
+    column = "\n".join(cells["direction"])
+    directions = column.lower().split("\n") if column.isascii() else \
+        [d.lower() if d.isascii() else d for d in cells["direction"]]
     checks = [
         _numbers(rules.ref_name, cells[rules.ref_name], rules.low - slack, rules.high + slack,
                  f"the sensor range {rules.low:g} .. {rules.high:g}"),
@@ -292,10 +294,14 @@ class ReadingsLayout:
         has_time = "time_utc" in self.index
         standards = columns.get("standards")
         any_bad = bool(bad_rows.any())
+        sizes = [len(u.lines) for u in units]
+        # each unit's latest time_utc, all at once (a unit has at least one row)
+        latest = np.maximum.reduceat(cols["time_utc"], np.cumsum([0, *sizes[:-1]])).tolist() \
+            if has_time else [None] * len(units)
         out: list[UnitReadings | RefusedRows] = []
         first = 0
-        for unit in units:
-            stop = first + len(unit.lines)
+        for unit, size, cal_time in zip(units, sizes, latest, strict=True):
+            stop = first + size
             bad = np.flatnonzero(bad_rows[first:stop]) if any_bad else _NONE_BAD
             if bad.size:
                 i = first + int(bad[0])
@@ -309,7 +315,7 @@ class ReadingsLayout:
                     temperature_c=cols["temperature_c"][idx],
                     raw_mean=cols["raw_mean_counts"][idx], raw_std=cols["raw_std_counts"][idx],
                     samples=cols["samples"][idx], up=cols["direction"][idx],
-                    cal_time_utc=int(cols["time_utc"][idx].max()) if has_time else None,
+                    cal_time_utc=cal_time,
                     times_utc=cols["time_utc"][idx] if has_time else None,
                     standards=tuple(tuple(cell.split()) for cell in standards[idx])
                     if standards is not None else ()))
