@@ -13,7 +13,8 @@ For each example spec:
 - **whole verify** (``hosttool verify SPEC --json``, design cached, a fresh process each
   time) and ``hosttool check`` against a bare ``python -c pass``;
 
-then ``hosttool batch`` of invented hive_scale lots (13 readings per unit) into a fresh
+then ``hosttool batch`` of invented hive_scale lots (13 readings per unit; its default
+``--jobs``, one more than the cores, unless ``--jobs`` is given) into a fresh
 folder and record, a fresh process each (its start-up included), after ``os.sync()`` and a
 pause (the disk's write-back of earlier runs would otherwise slow the fsyncs of this one),
 with the CPU time the batch used (user and system, all its processes) and a CPU probe
@@ -26,7 +27,7 @@ interleaved. The load average is printed before and after (and beside each batch
 figures taken on a busy machine are not worth much. Asserts nothing.
 
 Run: python benchmarks/speed.py [--repeat 5] [--samples 1000000] [--lots 1000,10000,100000]
-                                [--jobs 2] [--threads N] [--skip-batch] [--batch-repeat 1]
+                                [--jobs N] [--threads N] [--skip-batch] [--batch-repeat 1]
                                 [--specs hive_scale,fatigue_coupon]  ("": the batch alone)
                                 [--dir FOLDER]
 """
@@ -234,7 +235,9 @@ def bench_batch(args: argparse.Namespace) -> None:
     sizes = [int(s) for s in args.lots.split(",")]
     rng = np.random.default_rng(1)
     truths = [random_truth(f"HS{i:06d}", rng) for i in range(max(sizes))]
-    print(f"batch, {spec_path.name}: `hosttool batch --jobs {args.jobs}` in a fresh process "
+    jobs = [] if args.jobs is None else ["--jobs", str(args.jobs)]
+    print(f"batch, {spec_path.name}: `hosttool batch{''.join(' ' + j for j in jobs)}` "
+          f"({os.cpu_count()} cores) in a fresh process "
           "(start-up included), 13 readings per unit, a fresh folder and SQLite record")
     print(f"  {'units':>7}  {'seconds':>8}  {'units/s':>8}  {'ms/unit':>8}  {'cpu s':>6}  "
           f"{'user':>6}  {'sys':>6}  {'probe':>6}  load  result")
@@ -252,7 +255,7 @@ def bench_batch(args: argparse.Namespace) -> None:
             t0 = time.perf_counter()
             done = subprocess.run([sys.executable, "-m", "hosttool", "batch", str(spec_path),
                                    str(readings), "--out", str(out), "--station", "bench",
-                                   "--jobs", str(args.jobs)], capture_output=True, text=True,
+                                   *jobs], capture_output=True, text=True,
                                   check=False)
             elapsed = time.perf_counter() - t0
             after = resource.getrusage(resource.RUSAGE_CHILDREN)
@@ -268,7 +271,8 @@ def main() -> None:
     parser.add_argument("--repeat", type=int, default=5)
     parser.add_argument("--samples", type=int, default=1_000_000)
     parser.add_argument("--threads", type=int, default=len(os.sched_getaffinity(0)))
-    parser.add_argument("--jobs", type=int, default=2)
+    parser.add_argument("--jobs", type=int, default=None,
+                        help="batch's worker processes (default: the tool's own)")
     parser.add_argument("--lots", default="1000,10000,100000")
     parser.add_argument("--skip-batch", action="store_true")
     parser.add_argument("--batch-repeat", type=int, default=1)

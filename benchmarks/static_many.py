@@ -1,11 +1,11 @@
 """A stack of units at once against unit by unit: the constants' check and the static path.
 
-``Design.check_in_force_many`` and ``static_stack.static_outputs_many`` (numpy) do for a stack of U units
-what ``Design.check_in_force`` and ``model.static_integer`` do per unit (a batch's worker
-calibrates its units in stacks). This script times both ways on hive_scale with invented
-constants near the nominal ones and random codes and temperatures, U units of n readings
-per stack, and prints the median over ``--repeat`` passes of microseconds per unit, in the
-CPU time of this process and in wall time. Interleaved: each pass runs the four timings
+``Design.check_in_force_many`` and ``static_stack.static_outputs_many`` (numpy) do for a
+stack of U units what ``Design.check_in_force`` and ``model.static_integer`` do per unit (a
+batch's worker calibrates its units in stacks). This script times both ways on hive_scale
+with invented constants near the nominal ones and random codes and temperatures, U units of
+n readings per stack, and prints the median over ``--repeat`` passes of microseconds per
+unit, in the CPU time of this process and in wall time. Interleaved: each pass runs the four timings
 one after another, so a change of load hits them alike. The load average is printed before
 and after. Asserts nothing.
 

@@ -307,9 +307,12 @@ def inspect(spec: Path, file: Path, as_json: bool, address: str | None,
 @click.option("--cal-time", "cal_time", metavar="ISO8601",
               help="Calibration time in UTC for every unit (default: each unit's latest "
               "time_utc reading).")
-@click.option("--jobs", "jobs", default=lambda: min(os.cpu_count() or 1, 8),
-              show_default="the machine's cores, at most 8", type=click.IntRange(1, 64),
-              help="Worker processes for the calibration arithmetic (small lots use one).")
+@click.option("--jobs", "jobs", default=lambda: min((os.cpu_count() or 1) + 1, 8),
+              show_default="one more than the machine's cores, at most 8",
+              type=click.IntRange(1, 64),
+              help="Worker processes for the calibration arithmetic (small lots use one); "
+              "one more than the cores keeps them busy while a worker waits for its "
+              "images to reach the disk.")
 @guarded
 def batch(spec: Path, readings: Path, out: Path, db: str | None, station: str | None,
           lot: str | None, operator: str, register: Path | None, standards: tuple[str, ...],
