@@ -15,6 +15,7 @@ and every time in range can be written back in the same form.
 from __future__ import annotations
 
 import re
+import time
 from collections.abc import Sequence
 from datetime import UTC, date, datetime
 from typing import Any
@@ -144,5 +145,5 @@ def check_time_range(seconds: int, where: str) -> None:
 def format_time_utc(seconds: int) -> str:
     """Seconds since 1970 UTC (``TIME_MIN`` .. ``TIME_MAX``) as ISO 8601 ending in Z."""
     check_time_range(seconds, "time")
-    return datetime.fromtimestamp(seconds, UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+    return time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime(seconds))   # years 1970 .. 9999
 
