@@ -142,6 +142,27 @@ def test_a_part_is_flushed_by_one_thread_write_back_started_before_the_first_fsy
     stage.close()
 
 
+@pytest.mark.parametrize("one_call", [True, False])
+def test_publish_new_never_replaces_a_file(tmp_path: Path, monkeypatch: pytest.MonkeyPatch,
+                                           one_call: bool) -> None:
+    # Source: renameat2(2), RENAME_NOREPLACE: "Don't overwrite newpath of the rename. Return
+    # an error if newpath already exists" (Linux 3.15, ext4 among the first file systems);
+    # without it, a look for the name before rename(2).
+    if one_call:
+        assert staging._RENAMEAT2 is not None or not sys.platform.startswith("linux")
+    else:
+        monkeypatch.setattr(staging, "_RENAMEAT2", None)
+    stage = staging.Staging(tmp_path)
+    stage.start({"A.hex": b"new A\n", "B.hex": b"new B\n"}).wait()
+    (tmp_path / "B.r1.hex").write_bytes(b"a killed run's\n")
+    assert stage.publish_new("A.hex", str(tmp_path / "A.r1.hex")) is True
+    assert stage.publish_new("B.hex", str(tmp_path / "B.r1.hex")) is False
+    assert (tmp_path / "A.r1.hex").read_bytes() == b"new A\n"
+    assert (tmp_path / "B.r1.hex").read_bytes() == b"a killed run's\n"
+    assert sorted(p.name for p in stage.path.iterdir()) == [staging.OWNER, "B.hex"]
+    stage.close()
+
+
 def _hold(folder: Path) -> subprocess.Popen[bytes]:
     """A live process holding a staging folder of its own in ``folder``."""
     code = ("import sys, time; from pathlib import Path; from hosttool.util.staging import "

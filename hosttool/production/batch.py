@@ -363,6 +363,7 @@ class _Plan:
     revision: int
     hex_file: str | None
     write: bool                   # the image file must be (re)written
+    fresh: bool = False           # a name no row names: written unless the same is there
 
 
 def _existing(path: str) -> bytes | None:
@@ -408,10 +409,24 @@ def _decide(st: Station, p: Prepared, row: Row | None, last_revision: int) -> _P
     revision = last_revision + 1
     if p.image is None:
         return _Plan(p, None, None if row is None else row.id, revision, None, False)
-    hex_file = f"{p.serial}.r{revision}.hex"
-    # an existing file of that name is a killed run's, never recorded: adopt or replace it
-    write = _existing(st.file(hex_file)) != p.image
-    return _Plan(p, None, None if row is None else row.id, revision, hex_file, write)
+    # an existing file of that name is a killed run's, never recorded: adopted or replaced
+    # when the group publishes (``_publish_fresh``)
+    return _Plan(p, None, None if row is None else row.id, revision,
+                 f"{p.serial}.r{revision}.hex", True, fresh=True)
+
+
+def _publish_fresh(st: Station, p: Prepared, hex_file: str) -> bool:
+    """Publish the staged image of a new name, unless a killed run left the same bytes
+    under it (kept as it is); a file with other bytes is replaced. True if renamed."""
+    assert p.staged is not None
+    final = st.file(hex_file)
+    if st.staging.publish_new(p.staged, final):
+        return True
+    if _existing(final) == p.image:
+        st.staging.discard(p.staged)
+        return False
+    st.staging.publish(p.staged, final)
+    return True
 
 
 def _row(st: Station, p: Prepared, revision: int, hex_file: str | None,
@@ -453,7 +468,9 @@ def commit_group(st: Station, group: list[Prepared]) -> list[Outcome]:
         for plan in plans:
             if plan.prepared.staged is None:
                 continue
-            if plan.write and plan.hex_file:
+            if plan.fresh and plan.hex_file:
+                published = _publish_fresh(st, plan.prepared, plan.hex_file) or published
+            elif plan.write and plan.hex_file:
                 st.staging.publish(plan.prepared.staged, st.file(plan.hex_file))
                 published = True
             else:

@@ -24,11 +24,14 @@ staging folder (``.hosttool-staging-<pid>-<random>``) is held by a lock (flock o
 from __future__ import annotations
 
 import contextlib
+import ctypes
+import errno
 import fcntl
 import os
 import shutil
 import tempfile
 import time
+from collections.abc import Callable
 from concurrent.futures import Future, ThreadPoolExecutor
 from pathlib import Path
 
@@ -43,6 +46,21 @@ ORPHAN_AGE_S = 60.0
 _START_WRITEBACK = getattr(os, "posix_fadvise", None)
 
 _FLUSHER: dict[int, ThreadPoolExecutor] = {}     # pid -> this process's flushing thread
+#: renameat2(2)'s flag: fail with EEXIST instead of replacing an existing target.
+RENAME_NOREPLACE = 1
+_AT_FDCWD = -100
+
+
+def _rename_noreplace() -> Callable[..., int] | None:
+    """libc's renameat2 (Linux 3.15 and glibc 2.28 on), None where there is none."""
+    try:
+        function: Callable[..., int] = ctypes.CDLL(None, use_errno=True).renameat2
+    except (OSError, AttributeError):
+        return None
+    return function
+
+
+_RENAMEAT2 = _rename_noreplace()
 
 
 def flusher() -> ThreadPoolExecutor:
@@ -136,6 +154,25 @@ class Staging:
             os.replace(self._inside + name, final)
         except OSError as exc:
             raise OutputError(f"{final}: cannot write: {exc.strerror}") from None
+
+    def publish_new(self, name: str, final: str) -> bool:
+        """Rename the staged file ``name`` to ``final`` unless a file of that name exists:
+        then nothing is renamed and False returned. One system call where the kernel and
+        the file system have renameat2's RENAME_NOREPLACE (the test and the rename as
+        one), else a look for ``final`` and ``publish``."""
+        if _RENAMEAT2 is not None:
+            if _RENAMEAT2(_AT_FDCWD, os.fsencode(self._inside + name), _AT_FDCWD,
+                          os.fsencode(final), RENAME_NOREPLACE) == 0:
+                return True
+            error = ctypes.get_errno()
+            if error == errno.EEXIST:
+                return False
+            if error not in (errno.EINVAL, errno.ENOSYS):      # else: not here, fall back
+                raise OutputError(f"{final}: cannot write: {os.strerror(error)}")
+        if os.path.lexists(final):
+            return False
+        self.publish(name, final)
+        return True
 
     def discard(self, name: str) -> None:
         """Remove a staged file that is not published."""
