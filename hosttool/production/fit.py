@@ -36,7 +36,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from typing import Any, NamedTuple
 
 import numpy as np
@@ -130,10 +130,17 @@ class UnitCalibration:
     formats_reason: str
     figures: dict[str, float | None]
     criteria: tuple[Criterion, ...]
-    rounding: tuple[Rounding, ...]
     readings: UnitReadings
     output: F64 | None            # firmware output per reading, output units
     linearity: F64                # straight-line residual per reading, output units
+    exact: dict[str, float] = field(repr=False)     # each constant before its rounding
+    context: CalibrationContext = field(repr=False, compare=False)
+
+    @property
+    def rounding(self) -> tuple[Rounding, ...]:
+        """What rounding each constant into its format adds to the output (CAL.json and
+        the calibrate table; computed when asked: a batch records none of it)."""
+        return _rounding(self.context, self.constants, self.exact)
 
     @property
     def points(self) -> tuple[Point, ...]:
@@ -690,8 +697,8 @@ def _calibrate_plan(ctx: CalibrationContext, st: UnitStack, plan: PointPlan,
             formats_ok=ok, formats_reason=in_force.get(r, ""), figures=unit_figures,
             criteria=tuple([_criterion(key, label, values[r], limit, unit_, source)
                             for key, label, values, limit, unit_, source in criteria]),
-            rounding=_rounding(ctx, c, exact), readings=st.units[r],
-            output=output[r] if ok else None, linearity=linearity[r])
+            readings=st.units[r], output=output[r] if ok else None,
+            linearity=linearity[r], exact=exact, context=ctx)
     return done
 
 
