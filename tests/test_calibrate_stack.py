@@ -98,7 +98,8 @@ def test_a_unit_gives_the_same_calibration_in_a_lot_as_alone(variant: str) -> No
 def test_prepare_units_gives_what_prepare_gives_alone() -> None:
     ctx, checked = _lot("hive_scale", 100)
     together = prepare_units(ctx, checked, None)
-    assert [vars(p) for p in together] == [vars(prepare_units(ctx, [u], None)[0]) for u in checked]
+    assert [p._asdict() for p in together] == [prepare_units(ctx, [u], None)[0]._asdict()
+                                               for u in checked]
     assert any(p.refused for p in together) and any(p.image for p in together)
 
 

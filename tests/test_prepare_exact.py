@@ -151,7 +151,7 @@ def test_prepare_gives_the_record_of_the_straightforward_route(variant: str) -> 
     verdicts, outside = set(), 0
     for serial, unit in readings.units.items():
         prepared = prepare_units(ctx, [unit], None)[0]
-        assert vars(prepared) == {**_old_route(ctx, design, unit), "staged": None}, serial
+        assert prepared._asdict() == {**_old_route(ctx, design, unit), "staged": None}, serial
         outside += not _check_result(ctx, design, unit)
         verdicts.add(prepared.verdict)
         if prepared.image is not None:
