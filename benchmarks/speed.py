@@ -36,6 +36,7 @@ from __future__ import annotations
 
 import argparse
 import ctypes
+import importlib.util
 import os
 import resource
 import statistics
@@ -239,6 +240,10 @@ def bench_batch(args: argparse.Namespace) -> None:
     print(f"batch, {spec_path.name}: `hosttool batch{''.join(' ' + j for j in jobs)}` "
           f"({os.cpu_count()} cores) in a fresh process "
           "(start-up included), 13 readings per unit, a fresh folder and SQLite record")
+    cli = importlib.util.find_spec("hosttool.cli")
+    print("  hosttool's bytecode: " + (
+        "cached in __pycache__" if cli and cli.cached and Path(cli.cached).is_file() else
+        "not cached: every run compiles the package (about 0.1 s of its start)"))
     print(f"  {'units':>7}  {'seconds':>8}  {'units/s':>8}  {'ms/unit':>8}  {'cpu s':>6}  "
           f"{'user':>6}  {'sys':>6}  {'probe':>6}  load  result")
     with tempfile.TemporaryDirectory(dir=args.dir) as tmp:
