@@ -381,10 +381,7 @@ class _Plan:
 
 
 def _existing(path: str) -> bytes | None:
-    """The bytes of the file at ``path``, None if there is none (usually: a new name,
-    answered without raising and catching an exception)."""
-    if not os.access(path, os.F_OK):
-        return None
+    """The bytes of the file at ``path``, None if there is none."""
     try:
         with open(path, "rb") as file:
             return file.read()
@@ -590,11 +587,11 @@ def _preparer(work: _Work, jobs: int, units: list[UnitRows]) -> Iterator[Iterato
     The workers are forked here, before the record is opened (an SQLite connection must not
     cross a fork), and given chunks once the first unit is asked for; they inherit the
     work's context instead of receiving it pickled; each chunk of units travels as its
-    rows' text. Before the fork, this process freezes its
-    objects for the garbage collector (``gc.freeze``): the workers' collections then skip
-    the objects they inherit, instead of walking them (and copying every page they touch)
-    again and again. Nothing a unit runs is compiled (the static path of a stack is numpy:
-    design/static_stack.py), so no process of a batch imports numba.
+    rows' text. Before the fork, this process freezes its objects for the garbage collector
+    (``gc.freeze``): the workers' collections then skip the objects they inherit, instead of
+    walking them (and copying every page they touch) again and again. Nothing a unit runs
+    is compiled (the static path of a stack is numpy: design/static_stack.py), so no
+    process of a batch imports numba.
 
     concurrent.futures' process pool, not multiprocessing.Pool: the latter's worker-minding
     thread also waits on the results pipe and so wakes at every piece of a chunk's results
