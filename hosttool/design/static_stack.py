@@ -23,7 +23,7 @@ from collections.abc import Sequence
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from hosttool.design.fixedpoint import INT32_MAX, INT32_MIN
+from hosttool.design.fixedpoint import INT32_MAX, INT32_MIN, round_shift_array
 from hosttool.design.resolve import LIN_FRAC, ConstantsStack, Design, UnitConstants
 
 I64 = NDArray[np.int64]
@@ -59,11 +59,6 @@ def checked_inputs(design: Design, codes: ArrayLike, temps_centi: ArrayLike | No
     return x, t
 
 
-def _round_shift(x: I64, k: int) -> I64:
-    """(x + 2^(k-1)) >> k, arithmetic; the identity for k = 0 (``model.round_shift``)."""
-    return (x + ((1 << k) >> 1)) >> k
-
-
 def _clamp32(x: I64) -> I64:
     """sat32 of every value (``model.clamp32``)."""
     return np.minimum(np.maximum(x, INT32_MIN), INT32_MAX)
@@ -84,20 +79,20 @@ def static_outputs_many(design: Design, codes: ArrayLike, temps_centi: ArrayLike
     # step 1: offset, the chain word (filters pass a settled value unchanged)
     s = _clamp32(x * (1 << design.guard_bits) - c.offset[:, None])
     # step 3: scale
-    s = _clamp32(_round_shift(s * c.scale_mul[:, None], design.scale.shift))
+    s = _clamp32(round_shift_array(s * c.scale_mul[:, None], design.scale.shift))
     lin = design.linearisation
     if lin is not None:                                  # step 4: Horner in Q30
         w = s * (1 << (LIN_FRAC - lin.norm_shift))
         acc = c.lin[:, -1:]
         for i in range(c.lin.shape[1] - 2, -1, -1):
-            acc = _round_shift(acc * w, LIN_FRAC) + c.lin[:, i:i + 1]
-        s = _clamp32(_round_shift(acc + np.zeros_like(w), LIN_FRAC - lin.norm_shift))
+            acc = round_shift_array(acc * w, LIN_FRAC) + c.lin[:, i:i + 1]
+        s = _clamp32(round_shift_array(acc + np.zeros_like(w), LIN_FRAC - lin.norm_shift))
     tc = design.temperature
     if tc is not None:                                   # step 5: temperature
         tt = np.full_like(x, tc.reference_centi) if t is None else t
         dt = np.minimum(np.maximum(tt, tc.min_centi), tc.max_centi) - tc.reference_centi
-        s1 = s - _round_shift(c.tc_zero[:, None] * dt, tc.zero_shift)
-        g = _round_shift(c.tc_span[:, None] * dt, tc.span_shift)
-        s = _clamp32(s1 + _round_shift(s1 * g, LIN_FRAC))
+        s1 = s - round_shift_array(c.tc_zero[:, None] * dt, tc.zero_shift)
+        g = round_shift_array(c.tc_span[:, None] * dt, tc.span_shift)
+        s = _clamp32(s1 + round_shift_array(s1 * g, LIN_FRAC))
     out: I64 = np.ascontiguousarray(s, dtype=np.int64)
     return out
