@@ -459,6 +459,25 @@ def test_bad_spec_through_python_dash_m(tmp_path):
                            "gauges lie near 2)\n")
 
 
+@pytest.mark.parametrize("command", ["check", "design"])
+def test_printing_commands_end_at_once_with_whole_output(tmp_path, command):
+    # check and design end without the interpreter's teardown (cli.run, util/quick_exit.py):
+    # stdout buffered into a pipe must still arrive whole, with check's warning on stderr
+    # and status 0; the same output as the command run in-process
+    path = write(tmp_path, CELL.replace("noise_uv_rms = 0.03", "noise_uv_rms = 0.5")
+                 .replace("resolution = 0.01", "resolution = 0.005"))   # warned: see below
+    env = {k: v for k, v in os.environ.items() if k != "PYTHONUNBUFFERED"}
+    package_root = str(Path(hosttool.__file__).resolve().parent.parent)
+    env["PYTHONPATH"] = os.pathsep.join(filter(None, [package_root, env.get("PYTHONPATH")]))
+    done = subprocess.run([sys.executable, "-m", "hosttool", command, str(path), "--json"],
+                          cwd=tmp_path, env=env, capture_output=True, text=True, timeout=300)
+    in_process = CliRunner().invoke(main, [command, str(path), "--json"])
+    assert (done.returncode, in_process.exit_code) == (0, 0), done.stderr
+    assert json.loads(done.stdout) == json.loads(in_process.stdout)
+    assert done.stderr == in_process.stderr
+    assert done.stderr.startswith("warning: ") or command == "design"  # design: in its JSON
+
+
 @pytest.mark.parametrize(("given", "expected"), [(None, "1"), ("3", "3")])
 def test_console_entry_gives_blas_one_thread_unless_the_user_set_it(given, expected):
     # Source: OpenBLAS reads OPENBLAS_NUM_THREADS when it is loaded (with numpy), so the
