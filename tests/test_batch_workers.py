@@ -98,3 +98,33 @@ def test_the_collector_runs_less_often_during_a_batch_only(tmp_path: Path) -> No
     assert len(summary.outcomes) == 3
     assert during == [(batch.GC_YOUNG, *before[1:])] and before[0] < batch.GC_YOUNG
     assert gc.get_threshold() == before
+
+
+def test_the_collector_pauses_while_the_readings_file_is_split(tmp_path: Path,
+                                                               monkeypatch) -> None:
+    # Source: gc.isenabled / gc.disable (Python library reference, gc module). The split
+    # runs with the collector off; before and after the batch it is on; a batch started
+    # with it off (by the calling program) leaves it off.
+    from hosttool.production import batch
+    design = make_design(parse_spec(SPEC.read_text(), str(SPEC)))
+    readings = tmp_path / "lot.csv"
+    readings.write_text(lot_csv(design, [random_truth(f"GS{i:04d}", np.random.default_rng(i))
+                                         for i in range(2)], seed=4, start_utc=1_741_075_200))
+    seen = []
+    real_split = batch.split_readings
+
+    def split(*args, **kwargs):
+        seen.append(gc.isenabled())
+        return real_split(*args, **kwargs)
+
+    monkeypatch.setattr(batch, "split_readings", split)
+    for run, start_enabled in enumerate((True, False)):
+        (gc.enable if start_enabled else gc.disable)()
+        try:
+            summary = batch.run_batch(SPEC, readings, out=tmp_path / f"out{run}", db=None,
+                                      station="t", recalibrate=False, cal_time=None)
+            assert gc.isenabled() is start_enabled
+        finally:
+            gc.enable()
+        assert len(summary.outcomes) == 2
+    assert seen == [False, False]

@@ -567,6 +567,21 @@ def _work(units: list[UnitRows]) -> list[Prepared]:
 
 
 @contextmanager
+def _no_collections() -> Iterator[None]:
+    """The cyclic garbage collector paused, then as it was. For the split of a readings
+    file, which makes no cycles, only the lists and rows it keeps (about 2.6 million
+    objects for 100,000 units): the collector would walk them again and again as they
+    grow, 0.4 to 0.8 s of that split's 1.1 s."""
+    was_enabled = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if was_enabled:
+            gc.enable()
+
+
+@contextmanager
 def _fewer_collections() -> Iterator[None]:
     """The collector's youngest generation walked every ``GC_YOUNG`` allocations (in this
     process and the workers forked meanwhile); the thresholds restored after."""
@@ -633,7 +648,9 @@ def run_batch(spec_path: Path, readings_path: Path, *, out: Path, db: str | Path
     design = cached_design(load_spec(spec_path))
     ctx = CalibrationContext.of(design)
     block_area(design)
-    readings = split_readings(read_readings(readings_path), design.spec, str(readings_path))
+    with _no_collections():
+        readings = split_readings(read_readings(readings_path), design.spec,
+                                  str(readings_path))
     standards = load_standards(register) if register is not None else None
     check_lot_standards(lot_standards, standards, str(register))
     make_folder(out)
