@@ -94,6 +94,57 @@ def test_a_chunk_returns_only_when_all_its_images_are_on_disk(
     assert returned and all(staged == durable > 0 for staged, durable in returned)
 
 
+def test_each_process_stages_into_a_subfolder_of_its_own(tmp_path: Path) -> None:
+    # Creating a file, or renaming one out, takes its folder's lock (Linux VFS: the parent
+    # inode's lock); a worker staging into its own subfolder never waits for another's.
+    # The recording process publishes from every subfolder.
+    stage = staging.Staging(tmp_path)
+    mine = stage.name("P.hex")
+    stage.start({mine: b"parent\n"}).wait()
+    read, write = os.pipe()
+    pid = os.fork()
+    if pid == 0:                                       # a worker: stages its own image
+        try:
+            theirs = stage.name("C.hex")
+            stage.start({theirs: b"child\n"}).wait()
+            os.write(write, theirs.encode())
+        finally:
+            os._exit(0)
+    os.close(write)
+    theirs = os.read(read, 4096).decode()
+    os.close(read)
+    assert os.waitpid(pid, 0)[1] == 0
+    assert (mine, theirs) == (f"{os.getpid()}{os.sep}P.hex", f"{pid}{os.sep}C.hex")
+    assert (stage.path / mine).read_bytes() == b"parent\n"
+    assert (stage.path / theirs).read_bytes() == b"child\n"
+    assert stage.publish_new(theirs, str(tmp_path / "C.r1.hex"))
+    assert stage.publish_new(mine, str(tmp_path / "P.r1.hex"))
+    assert (tmp_path / "C.r1.hex").read_bytes() == b"child\n"
+    stage.close()
+    assert not stage.path.exists()
+
+
+def test_a_batch_s_workers_stage_apart_and_the_recorder_publishes_all(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    published: list[str] = []
+    real = staging.Staging.publish_new
+
+    def publish_new(self: staging.Staging, name: str, final: str) -> bool:
+        published.append(name)
+        return real(self, name, final)
+
+    monkeypatch.setattr(staging.Staging, "publish_new", publish_new)
+    out = tmp_path / "out"
+    summary = batch.run_batch(SPEC, _lot(tmp_path / "lot.csv", 2 * batch.CHUNK + 10),
+                              out=out, db=None, station="t", recalibrate=False,
+                              cal_time=None, jobs=2)
+    passed = sorted(o.serial for o in summary.outcomes if o.status == "pass")
+    folders = {name.split(os.sep)[0] for name in published}
+    assert sorted(name.split(os.sep)[1].removesuffix(".hex") for name in published) == passed
+    assert folders and str(os.getpid()) not in folders     # staged by the workers
+    assert sorted(p.name.split(".r")[0] for p in out.glob("*.hex")) == passed
+
+
 def test_a_failed_fsync_is_one_line_and_every_file_is_closed(
         tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     real_fsync = os.fsync
@@ -108,7 +159,7 @@ def test_a_failed_fsync_is_one_line_and_every_file_is_closed(
     monkeypatch.setattr(staging.os, "fsync", failing_fsync)
     stage = staging.Staging(tmp_path)
     open_before = len(os.listdir("/proc/self/fd"))
-    flushing = stage.start({f"U{i}.hex": b":00000001FF\n" for i in range(5)})
+    flushing = stage.start({stage.name(f"U{i}.hex"): b":00000001FF\n" for i in range(5)})
     with pytest.raises(staging.OutputError, match=r"cannot write an image: Input/output error$"):
         flushing.wait()
     assert len(calls) == 5 and len(os.listdir("/proc/self/fd")) == open_before
@@ -133,7 +184,7 @@ def test_a_part_is_flushed_by_one_thread_write_back_started_before_the_first_fsy
     monkeypatch.setattr(staging, "_START_WRITEBACK", hint)
     monkeypatch.setattr(staging.os, "fsync", fsync)
     stage = staging.Staging(tmp_path)
-    files = {f"U{i}.hex": b":00000001FF\n" for i in range(8)}
+    files = {stage.name(f"U{i}.hex"): b":00000001FF\n" for i in range(8)}
     stage.start(files).wait()
     stage.start(files).wait()
     assert [e[0] for e in events] == (["hint"] * 8 + ["fsync"] * 8) * 2
@@ -153,13 +204,15 @@ def test_publish_new_never_replaces_a_file(tmp_path: Path, monkeypatch: pytest.M
     else:
         monkeypatch.setattr(staging, "_RENAMEAT2", None)
     stage = staging.Staging(tmp_path)
-    stage.start({"A.hex": b"new A\n", "B.hex": b"new B\n"}).wait()
+    a, b = stage.name("A.hex"), stage.name("B.hex")
+    stage.start({a: b"new A\n", b: b"new B\n"}).wait()
     (tmp_path / "B.r1.hex").write_bytes(b"a killed run's\n")
-    assert stage.publish_new("A.hex", str(tmp_path / "A.r1.hex")) is True
-    assert stage.publish_new("B.hex", str(tmp_path / "B.r1.hex")) is False
+    assert stage.publish_new(a, str(tmp_path / "A.r1.hex")) is True
+    assert stage.publish_new(b, str(tmp_path / "B.r1.hex")) is False
     assert (tmp_path / "A.r1.hex").read_bytes() == b"new A\n"
     assert (tmp_path / "B.r1.hex").read_bytes() == b"a killed run's\n"
-    assert sorted(p.name for p in stage.path.iterdir()) == [staging.OWNER, "B.hex"]
+    assert sorted(str(p.relative_to(stage.path)) for p in stage.path.rglob("*")
+                  if p.is_file()) == [staging.OWNER, b]
     stage.close()
 
 

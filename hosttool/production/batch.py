@@ -302,7 +302,7 @@ def _list_template(item: str, n: int) -> str:
     return "[" + ", ".join([item] * n) + "]"
 
 
-def _traced(p: Prepared, unit: UnitReadings | RefusedRows,
+def _traced(p: Prepared, unit: UnitReadings | RefusedRows, staging: Staging,
             register: dict[str, Standard] | None, lot_ids: tuple[str, ...]) -> Prepared:
     """The unit with the reference standards its readings used (none named: none used) and,
     if it passed, the name its image is staged under; or refused (unknown standard, or one
@@ -318,7 +318,7 @@ def _traced(p: Prepared, unit: UnitReadings | RefusedRows,
             return refused(p.serial, str(exc))
         standards = json.dumps(used)
     return p._replace(standards=standards,
-                      staged=None if p.image is None else f"{p.serial}.hex")
+                      staged=None if p.image is None else staging.name(f"{p.serial}.hex"))
 
 
 # ----------------------------------------------------------------------------- recording
@@ -544,7 +544,7 @@ class _Work:
             images: dict[str, bytes] = {}
             for unit, prepared in zip(part, prepare_units(self.ctx, part, self.override),
                                       strict=True):
-                p = _traced(prepared, unit, self.register, self.lot_ids)
+                p = _traced(prepared, unit, self.staging, self.register, self.lot_ids)
                 if p.staged is not None and p.image is not None:
                     images[p.staged] = p.image
                 done.append(p)

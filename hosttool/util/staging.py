@@ -1,11 +1,11 @@
 """Files made durable where they are made, published in groups where they are recorded.
 
 A production batch makes each unit's image in a worker process and records it in the main
-one. The worker writes the images of each part of a chunk of units into the batch's own
-*staging folder* inside the output folder and has them flushed there by a thread of its
-own while it computes the chunk's next part (``start``), and waits for them before handing
-the chunk back (``Flushing.wait``): the data is on disk before the recording process sees
-it. The thread first has the kernel start writing every file of the part
+one. The worker writes the images of each part of a chunk of units into its own subfolder of
+the batch's *staging folder* inside the output folder (``name``) and has them flushed there
+by a thread of its own while it computes the chunk's next part (``start``), and waits for
+them before handing the chunk back (``Flushing.wait``): the data is on disk before the
+recording process sees it. The thread first has the kernel start writing every file of the part
 (``posix_fadvise`` DONTNEED: write-back begun, not waited for), then fsyncs them one after
 the other: on a journalling file system (ext4 measured) the first waits for the data and
 the journal commit that carry them all, the others find theirs done. That costs about half
@@ -128,12 +128,26 @@ class Staging:
                 from None
         fcntl.flock(self._owner, fcntl.LOCK_EX)
         self._inside = f"{self.path}{os.sep}"          # names joined as text: many per lot
+        self._made = 0                                 # the process whose subfolder is made
+
+    def name(self, base: str) -> str:
+        """The name under which this process stages the file ``base``: in a subfolder of
+        its own, named by its process id. Creating a file, and renaming one out, locks its
+        folder; workers staging into one folder queued on that lock, and on a shared
+        virtual machine the kernel spins while it waits (per-process subfolders: about a
+        tenth off a 10,000-unit batch, and fewer runs whose system time balloons)."""
+        return f"{os.getpid()}{os.sep}{base}"
 
     def start(self, files: dict[str, bytes]) -> Flushing:
-        """Write each file (name -> bytes) into the staging folder and hand them to this
-        process's flushing thread; they are on disk once ``wait`` of the result returns."""
+        """Write each file (a name from ``name`` -> bytes) into the staging folder and hand
+        them to this process's flushing thread; they are on disk once ``wait`` of the result
+        returns."""
         fds: list[int] = []
         try:
+            if self._made != os.getpid():
+                with contextlib.suppress(FileExistsError):
+                    os.mkdir(f"{self._inside}{os.getpid()}")
+                self._made = os.getpid()
             for name, data in files.items():
                 fds.append(os.open(self._inside + name, os.O_WRONLY | os.O_CREAT | os.O_TRUNC,
                                    0o666))
