@@ -124,7 +124,7 @@ def test_each_process_stages_into_a_subfolder_of_its_own(tmp_path: Path) -> None
     assert not stage.path.exists()
 
 
-def test_a_batch_s_workers_stage_apart_and_the_recorder_publishes_all(
+def test_the_workers_of_a_batch_stage_apart_and_the_recorder_publishes_all(
         tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     published: list[str] = []
     real = staging.Staging.publish_new
