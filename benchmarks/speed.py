@@ -19,9 +19,14 @@ folder and record, a fresh process each (its start-up included), after ``os.sync
 pause (the disk's write-back of earlier runs would otherwise slow the fsyncs of this one),
 with the CPU time the batch used (user and system, all its processes) and a CPU probe
 taken just before (``python_probe``: a fixed pure-Python loop; the batch's time scales with
-it), ``--batch-repeat`` runs of each size, in ``--dir`` (each image is a new file: where
-many files were deleted shortly before, creating files has been seen to cost the kernel
-several times more on a virtual machine's ext4 disk, so the folder matters). Ratios are Python / C
+it), ``--batch-repeat`` runs of each size, in ``--dir``. Each image is a new file, and on an
+ext4 file system without a journal the kernel does not give a new file an inode freed in the
+last minute (six while that inode's table block awaits write-back): it steps past every such
+inode, looking each up, for every file it creates. A batch started within minutes of
+deleting many files (an earlier benchmark's folders: this script deletes its own at the end)
+pays seconds of system time for it (seen: 3.4 to 7.4 s instead of 1.2 to 1.6 s for 10,000
+units; ``perf`` shows the kernel's inode allocator): the ``sys`` column shows it. Wait six
+minutes after deleting a large folder, or use ``--dir`` on another disk. Ratios are Python / C
 (1.0: as fast as C). Each figure is the median of ``--repeat`` runs, Python and C
 interleaved. The load average is printed before and after (and beside each batch):
 figures taken on a busy machine are not worth much. Asserts nothing.

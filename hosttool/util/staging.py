@@ -7,10 +7,10 @@ by a thread of its own while it computes the chunk's next part (``start``), and 
 them before handing the chunk back (``Flushing.wait``): the data is on disk before the
 recording process sees it. The thread first has the kernel start writing every file of the part
 (``posix_fadvise`` DONTNEED: write-back begun, not waited for), then fsyncs them one after
-the other: on a journalling file system (ext4 measured) the first waits for the data and
-the journal commit that carry them all, the others find theirs done. That costs about half
-the CPU time of one thread per fsync (64 threads woken and put to sleep per part), for the
-same wait.
+the other: every file's data is under way by then, so each fsync mostly waits for writes
+already in flight (on a journalling file system the first one's commit carries the others'
+metadata too). That costs about half the CPU time of one thread per fsync (64 threads woken
+and put to sleep per part), for the same wait.
 The recording process then renames the images of a group into the output folder and fsyncs
 the folder once (the names are on disk), before the group's rows commit. Only these files
 are flushed: ``os.sync()`` would wait for every pending write of the whole machine.
