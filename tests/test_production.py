@@ -15,6 +15,7 @@ import sqlite3
 import subprocess
 import sys
 import time
+from collections.abc import Callable
 from pathlib import Path
 
 import numpy as np
@@ -79,16 +80,73 @@ def _essence(out: Path) -> tuple[set[tuple[object, ...]], dict[str, bytes]]:
 
 def _made(out: Path, since: float) -> int:
     """Images a batch started at ``since`` (time.time()) has made so far: published into
-    ``out`` (by any run), or on disk in a staging folder (util/staging.py) since then (a
-    killed run's staging folder stays until the next batch clears it)."""
-    staged = 0
-    for folder in out.glob(".hosttool-staging-*"):
+    ``out`` (by any run), or on disk in a worker's subfolder of a staging folder
+    (util/staging.py: ``<staging>/<pid>/<serial>.hex``) since then (a killed run's staging
+    folder stays until the next batch clears it)."""
+    return sum(1 for _ in out.glob("*.hex")) + sum(
+        _staged_since(sub, since) for staging in out.glob(".hosttool-staging-*")
+        for sub in _entries(staging) if sub.is_dir(follow_symlinks=False))
+
+
+def _published_since(out: Path, since: float) -> int:
+    """Images in ``out`` made at or after ``since`` (a rename keeps a file's mtime)."""
+    count = 0
+    for path in out.glob("*.hex"):
         try:
-            for entry in os.scandir(folder):
-                staged += entry.stat().st_mtime >= since
-        except FileNotFoundError:       # published, or the folder removed, meanwhile
+            count += path.stat().st_mtime >= since
+        except FileNotFoundError:
             pass
-    return sum(1 for _ in out.glob("*.hex")) + staged
+    return count
+
+
+def _kill_rounds(readings: Path, out: Path, rng: random.Random, rounds: int,
+                 check: Callable[[], object], *extra: str) -> tuple[int, int]:
+    """Start a batch ``rounds`` times and kill -9 it at a random point, ``check()`` after
+    each. Even rounds: once it has made a random number of images (in the first half of
+    what is left, so that it cannot finish first), most of them still staged. Odd rounds:
+    once it has published 1 to 31 images of its own into ``out`` (its group's renames under
+    way, the group's rows not yet or just committed): at most 2 x 128 are published by such
+    rounds, so a run has at least 47 of the lot's 303 images left to publish. Returns the
+    kills and the kills of odd rounds."""
+    kills = while_publishing = 0
+    for round_ in range(rounds):
+        existing = sum(1 for _ in out.glob("*.hex"))     # published (recorded or not)
+        target = (existing + rng.randrange(1, max(2, (319 - existing) // 2)) if round_ % 2 == 0
+                  else rng.randrange(1, 32))
+        started = time.time()
+        proc = _start(readings, out, *extra)
+        while proc.poll() is None and (_made(out, started) if round_ % 2 == 0 else
+                                       _published_since(out, started)) < target:
+            time.sleep(0.001)
+        if round_ % 2 == 0:
+            time.sleep(rng.uniform(0.0, 0.01))
+        if proc.poll() is None:
+            os.kill(proc.pid, signal.SIGKILL)
+            kills += 1
+            while_publishing += round_ % 2
+        proc.wait(timeout=60)
+        check()
+    return kills, while_publishing
+
+
+def _entries(folder: str | Path) -> list[os.DirEntry[str]]:
+    """The entries of a folder, none if it is gone (published, or removed, meanwhile)."""
+    try:
+        with os.scandir(folder) as entries:
+            return list(entries)
+    except FileNotFoundError:
+        return []
+
+
+def _staged_since(folder: os.DirEntry[str], since: float) -> int:
+    """Images staged in a worker's subfolder at or after ``since``."""
+    count = 0
+    for entry in _entries(folder.path):
+        try:
+            count += entry.name.endswith(".hex") and entry.stat().st_mtime >= since
+        except FileNotFoundError:       # renamed into the output folder meanwhile
+            pass
+    return count
 
 
 def _consistent(out: Path) -> int:
@@ -241,23 +299,9 @@ def test_kill_minus_9_at_random_points_then_resume(tmp_path: Path) -> None:
     expected = _essence(clean)
     out = tmp_path / "out"
     out.mkdir()
-    rng = random.Random(20250304)
-    kills = 0
-    for _ in range(5):
-        existing = sum(1 for _ in out.glob("*.hex"))     # published (recorded or not)
-        # somewhere in the first half of what is left, so the run cannot finish first
-        target = existing + rng.randrange(1, max(2, (319 - existing) // 2))
-        started = time.time()
-        proc = _start(readings, out)
-        while proc.poll() is None and _made(out, started) < target:
-            time.sleep(0.001)
-        time.sleep(rng.uniform(0.0, 0.01))
-        if proc.poll() is None:
-            os.kill(proc.pid, signal.SIGKILL)
-            kills += 1
-        proc.wait(timeout=60)
-        _consistent(out)
-    assert kills >= 4
+    kills, while_publishing = _kill_rounds(readings, out, random.Random(20250304), 5,
+                                           lambda: _consistent(out))
+    assert kills >= 4 and while_publishing >= 1
     final = _batch(readings, out)
     assert final.returncode == 1, final.stderr
     assert _essence(out) == expected

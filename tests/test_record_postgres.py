@@ -9,18 +9,15 @@ from the files themselves (intelhex, hashlib), never from the code under test.
 from __future__ import annotations
 
 import hashlib
-import os
 import random
-import signal
 import subprocess
 import sys
-import time
 from pathlib import Path
 
 import psycopg
 import pytest
 from intelhex import IntelHex
-from test_production import ADDRESS, AREA, SAME, SPEC, _batch, _lot, _made, _rows, _truths
+from test_production import ADDRESS, AREA, SAME, SPEC, _batch, _kill_rounds, _lot, _rows, _truths
 
 from hosttool.formats.calblock import decode
 
@@ -140,23 +137,12 @@ def test_kill_minus_9_mid_lot_then_rerun_completes(tmp_path: Path, postgres_uri:
     readings = _lot(tmp_path / "lot.csv", _truths(320, failing=17))
     out = tmp_path / "out"
     out.mkdir()
-    rng = random.Random(20261202)
-    kills = 0
-    for _ in range(4):
-        existing = sum(1 for _ in out.glob("*.hex"))     # published (recorded or not)
-        target = existing + rng.randrange(1, max(2, (319 - existing) // 2))
-        started = time.time()
-        proc = _start(readings, out, "--db", postgres_uri, "--station", "K")
-        while proc.poll() is None and _made(out, started) < target:
-            time.sleep(0.001)
-        time.sleep(rng.uniform(0.0, 0.01))
-        if proc.poll() is None:
-            os.kill(proc.pid, signal.SIGKILL)
-            kills += 1
-        proc.wait(timeout=60)
-        rows = _consistent(postgres_uri, {"K": out})
-        assert len(rows) < 320
-    assert kills >= 3
+    def check() -> None:
+        assert len(_consistent(postgres_uri, {"K": out})) <= 320
+
+    kills, while_publishing = _kill_rounds(readings, out, random.Random(20261202), 4, check,
+                                           "--db", postgres_uri, "--station", "K")
+    assert kills >= 3 and while_publishing >= 1
     final = _batch(readings, out, "--db", postgres_uri, "--station", "K")
     assert final.returncode == 1, final.stderr
     rows = _consistent(postgres_uri, {"K": out})
