@@ -104,10 +104,9 @@ def _kill_rounds(readings: Path, out: Path, rng: random.Random, rounds: int,
     """Start a batch ``rounds`` times and kill -9 it at a random point, ``check()`` after
     each. Even rounds: once it has made a random number of images (in the first half of
     what is left, so that it cannot finish first), most of them still staged. Odd rounds:
-    once it has published 1 to 31 images of its own into ``out`` (its group's renames under
-    way, the group's rows not yet or just committed): at most 2 x 128 are published by such
-    rounds, so a run has at least 47 of the lot's 303 images left to publish. Returns the
-    kills and the kills of odd rounds."""
+    once it has published 1 to 31 images of its own into ``out`` (a group's renames under
+    way, its rows not yet or just committed); a run that finishes first (too few images
+    left for it to publish) is not killed. Returns the kills and the kills of odd rounds."""
     kills = while_publishing = 0
     for round_ in range(rounds):
         existing = sum(1 for _ in out.glob("*.hex"))     # published (recorded or not)
