@@ -168,11 +168,12 @@ def refused(serial: str, reason: str) -> Prepared:
 
 
 #: The record's JSON texts of a unit, written as ``json.dumps`` writes them (tests hold them
-#: to it): its constants (canonical: sorted keys, no spaces) by an encoder made once; its
-#: figures (sorted keys), each criterion, reading and point by a template, its strings by
+#: to it): its constants (canonical: sorted keys, no spaces) and figures (sorted keys) by
+#: encoders made once; each criterion, reading and point by a template, its strings by
 #: json's own escaping, its numbers by ``repr`` (what json writes for a finite float; the
 #: reader refuses readings that are not finite).
 _CONSTANTS = json.JSONEncoder(sort_keys=True, separators=(",", ":"))
+_FIGURES = json.JSONEncoder(sort_keys=True)
 _TEXT = json.encoder.encode_basestring_ascii
 _CRITERION = ('{"key": %s, "label": %s, "value": %s, "limit": %s, "unit": %s, "source": %s, '
               '"pass": %s}')
@@ -269,8 +270,7 @@ def _prepared(ctx: CalibrationContext, unit: UnitReadings, cal_time: int,
         serial=unit.serial, refused="", verdict=result.verdict, reasons=result.reasons,
         cal_time_utc=format_time_utc(cal_time),
         constants=_CONSTANTS.encode(constants_json(result.constants)),
-        figures=_figures_template(tuple(result.figures)) % tuple(
-            [_number(v) for _, v in sorted(result.figures.items())]), image=image,
+        figures=_FIGURES.encode(result.figures), image=image,
         criteria=template % tuple(chain.from_iterable(
             (_number(c.value), "true" if c.passed else "false") for c in criteria)),
         points=_list_template(_POINT, n) % points,
@@ -286,14 +286,6 @@ def _number(value: float | None) -> str:
     if type(value) is int:
         return int.__repr__(value)
     return json.dumps(value)
-
-
-@functools.lru_cache(maxsize=64)
-def _figures_template(keys: tuple[str, ...]) -> str:
-    """The JSON text of a unit's figures (sorted keys, as ``json.dumps(..., sort_keys=True)``
-    writes them) with each value left as %s: what every unit's figures share."""
-    return "{" + ", ".join([_TEXT(key).replace("%", "%%") + ": %s"
-                            for key in sorted(keys)]) + "}"
 
 
 @functools.lru_cache(maxsize=64)
